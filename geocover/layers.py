@@ -1,0 +1,216 @@
+"""The edge: reading vector and raster layers, writing GeoPackages atomically.
+
+Only this module and the tools touch paths, GDAL and GeoDataFrames.  Reading
+errors name the file and the layer and say what to do; writing goes to a
+temporary file in the output folder that is renamed over the target only
+when complete, so an interrupted write never leaves a partial GeoPackage
+and never harms the previous output.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import logging
+import os
+import tempfile
+import zipfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, Iterator, Mapping
+
+from .errors import CRSError, LayerError, OutputError
+
+if TYPE_CHECKING:  # heavy imports stay out of module import time
+    import geopandas as gpd
+
+__all__ = [
+    "LayerRef",
+    "parse_layer_ref",
+    "list_layers",
+    "read_vector",
+    "to_crs",
+    "open_raster",
+    "atomic_output",
+    "write_layers",
+    "file_digest",
+]
+
+logger = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class LayerRef:
+    """A vector layer: a file and, for multi-layer files, the layer's name."""
+
+    path: Path
+    layer: str | None = None
+
+    def __str__(self) -> str:
+        return f"{self.path}:{self.layer}" if self.layer else str(self.path)
+
+
+def parse_layer_ref(value: Any, base: Path | None = None) -> LayerRef:
+    """``"file.gpkg"``, ``"file.gpkg:layer"`` or a mapping ``{path, layer}`` -> :class:`LayerRef`.
+
+    Relative paths resolve against ``base`` (a study file's folder).
+
+    >>> parse_layer_ref("roads.gpkg:main_roads")
+    LayerRef(path=PosixPath('roads.gpkg'), layer='main_roads')
+    """
+    if isinstance(value, LayerRef):
+        ref = value
+    elif isinstance(value, Mapping):
+        ref = LayerRef(Path(str(value["path"])), value.get("layer"))
+    else:
+        text = str(value)
+        path, layer = text, None
+        head, sep, tail = text.rpartition(":")
+        # a colon after a one-letter drive ("C:\\data") is not a layer separator
+        if sep and head and len(head) > 1 and "/" not in tail and "\\" not in tail and tail:
+            path, layer = head, tail
+        ref = LayerRef(Path(path), layer)
+    if base is not None and not ref.path.is_absolute():
+        ref = LayerRef(base / ref.path, ref.layer)
+    return ref
+
+
+def _check_path(path: Path, what: str) -> None:
+    if not path.exists():
+        raise LayerError(f"{what}: file {path} does not exist; check the path (relative paths start at the study file's folder)")
+    if path.is_dir() and path.suffix.lower() not in (".gdb",):
+        raise LayerError(f"{what}: {path} is a folder, not a layer; name the file inside it (e.g. a .gpkg or .tif)")
+    if path.suffix.lower() == ".zip" or (path.is_file() and zipfile.is_zipfile(path) and path.suffix.lower() not in (".gpkg", ".tif", ".tiff", ".xlsx")):
+        raise LayerError(f"{what}: {path} is a zip archive; unpack it and name the layer file inside")
+
+
+def list_layers(path: Path | str) -> list[str]:
+    """Names of the vector layers in a file."""
+    import pyogrio
+
+    try:
+        return [str(name) for name in pyogrio.list_layers(str(path))[:, 0]]
+    except Exception as exc:
+        raise LayerError(f"{path}: cannot be read as a vector file ({exc}); is it a complete GeoPackage or shapefile?") from None
+
+
+def read_vector(ref: LayerRef | str, what: str = "layer", allow_empty: bool = False) -> "gpd.GeoDataFrame":
+    """Read a vector layer with errors that name the file, the layer and the fix.
+
+    A layer with no CRS is an error (saying how to assign one); an empty
+    layer is an error unless ``allow_empty``.
+    """
+    import geopandas as gpd
+
+    ref = parse_layer_ref(ref)
+    _check_path(ref.path, what)
+    layers = list_layers(ref.path)
+    if ref.layer is None and len(layers) > 1:
+        raise LayerError(
+            f"{what}: {ref.path} holds {len(layers)} layers ({', '.join(layers)}); name one, e.g. '{ref.path}:{layers[0]}'"
+        )
+    if ref.layer is not None and ref.layer not in layers:
+        raise LayerError(f"{what}: {ref.path} has no layer {ref.layer!r}; its layers are: {', '.join(layers) or 'none'}")
+    try:
+        frame = gpd.read_file(ref.path, layer=ref.layer or (layers[0] if layers else None), engine="pyogrio")
+    except Exception as exc:
+        raise LayerError(f"{what}: cannot read {ref} ({exc}); is the file complete and a format GDAL reads?") from None
+    if frame.crs is None:
+        raise CRSError(
+            f"{what}: {ref} has no CRS; assign the one it was made in (e.g. in a desktop GIS, or with "
+            "`ogr2ogr -a_srs EPSG:XXXX out.gpkg in.gpkg`)"
+        )
+    if len(frame) == 0 and not allow_empty:
+        raise LayerError(f"{what}: {ref} has no features; check the file and the layer name")
+    frame.attrs["source"] = str(ref)
+    return frame
+
+
+def to_crs(frame: "gpd.GeoDataFrame", crs: Any, what: str = "layer") -> "gpd.GeoDataFrame":
+    """Reproject ``frame`` to ``crs`` when it is in another CRS, and say so."""
+    from pyproj import CRS
+
+    target = CRS.from_user_input(crs)
+    if frame.crs is not None and CRS.from_user_input(frame.crs).equals(target):
+        return frame
+    logger.info("%s: reprojecting from %s to %s", what, frame.crs.to_string() if frame.crs else "?", target.to_string())
+    out = frame.to_crs(target)
+    out.attrs.update(frame.attrs)
+    return out
+
+
+def open_raster(path: Path | str, what: str = "raster") -> Any:
+    """Open a raster with rasterio; errors name the file and say what to check."""
+    import rasterio
+
+    path = Path(path)
+    _check_path(path, what)
+    try:
+        src = rasterio.open(path)
+    except Exception as exc:
+        raise LayerError(f"{what}: cannot open {path} as a raster ({exc}); is it a complete GeoTIFF?") from None
+    if src.crs is None:
+        src.close()
+        raise CRSError(f"{what}: {path} has no CRS; assign one with `gdal_edit.py -a_srs EPSG:XXXX {path.name}`")
+    return src
+
+
+@contextlib.contextmanager
+def atomic_output(target: Path | str, inputs: tuple[Path, ...] = ()) -> Iterator[Path]:
+    """Yield a temporary path beside ``target``; rename it over ``target`` on success.
+
+    On any error (or Ctrl-C) the temporary file is removed and ``target``
+    keeps its previous content.  Refuses to overwrite one of ``inputs``.
+    """
+    target = Path(target).resolve()
+    for src in inputs:
+        with contextlib.suppress(OSError):
+            if Path(src).resolve() == target:
+                raise OutputError(f"output {target} is also an input; choose another output folder or name")
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp_name = tempfile.mkstemp(prefix=f".{target.stem}.", suffix=f".tmp{target.suffix}", dir=target.parent)
+    os.close(fd)
+    tmp = Path(tmp_name)
+    tmp.unlink()  # GDAL wants to create the file itself
+    try:
+        yield tmp
+        os.replace(tmp, target)
+    finally:
+        for leftover in (tmp, Path(str(tmp) + "-journal"), Path(str(tmp) + "-wal"), Path(str(tmp) + "-shm")):
+            with contextlib.suppress(FileNotFoundError):
+                leftover.unlink()
+
+
+def write_layers(
+    target: Path | str,
+    layers: Mapping[str, "gpd.GeoDataFrame"],
+    inputs: tuple[Path, ...] = (),
+) -> Path:
+    """Write several layers into one GeoPackage, atomically.
+
+    Each layer gets a spatial index (GDAL's default for GeoPackage) and its
+    CRS.  ``frame.attrs['description']``, when set, becomes the layer's
+    description in the GeoPackage contents table.
+    """
+    target = Path(target)
+    with atomic_output(target, inputs) as tmp:
+        for name, frame in layers.items():
+            options = {"SPATIAL_INDEX": "YES"}
+            description = frame.attrs.get("description")
+            if description:
+                options["DESCRIPTION"] = str(description)
+            try:
+                frame.to_file(tmp, layer=name, driver="GPKG", engine="pyogrio", layer_options=options)
+            except Exception as exc:
+                raise OutputError(f"cannot write layer {name!r} to {target}: {exc}") from exc
+    logger.info("wrote %s (%s)", target, ", ".join(layers))
+    return target
+
+
+def file_digest(path: Path | str, chunk: int = 1 << 20) -> str:
+    """SHA-256 of a file, read in chunks."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(chunk), b""):
+            digest.update(block)
+    return digest.hexdigest()
