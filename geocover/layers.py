@@ -200,7 +200,13 @@ def write_layers(
             if description:
                 options["DESCRIPTION"] = str(description)
             try:
-                frame.to_file(tmp, layer=name, driver="GPKG", engine="pyogrio", layer_options=options)
+                if hasattr(frame, "geometry"):
+                    frame.to_file(tmp, layer=name, driver="GPKG", engine="pyogrio", layer_options=options)
+                else:  # an attribute table with no geometry
+                    import pyogrio
+
+                    options.pop("SPATIAL_INDEX")
+                    pyogrio.write_dataframe(frame, tmp, layer=name, driver="GPKG", layer_options=options)
             except Exception as exc:
                 raise OutputError(f"cannot write layer {name!r} to {target}: {exc}") from exc
     logger.info("wrote %s (%s)", target, ", ".join(layers))

@@ -1,0 +1,585 @@
+"""The one way a study goes: read -> Demand, Sites -> Reach -> model -> Plan -> audit -> write.
+
+Tools and the study runner call these steps with converted parameter
+groups (see :mod:`geocover.toolbox.options`).  This module is the toolbox's
+edge: it reads layers, calls the core and hands results to the writers.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping
+
+import numpy as np
+
+from ..choices import ModelKind, ServiceMetric
+from ..errors import ParameterError
+from ..values import Demand, Plan, Reach, ScreeningRecord, SiteRole, Sites
+from .tool import RunContext
+
+__all__ = [
+    "StudyOutcome",
+    "check_demand",
+    "check_sites",
+    "check_service",
+    "check_model",
+    "load_demand",
+    "load_sites",
+    "build_reach",
+    "solve",
+    "run_pipeline",
+    "evaluate_given_sites",
+    "write_outputs",
+    "summary_lines",
+]
+
+logger = logging.getLogger(__name__)
+
+
+# ----------------------------------------------------------------------------- cross-parameter checks
+
+
+def check_demand(p: Mapping[str, Any]) -> list[ParameterError]:
+    given = [k for k in ("grid", "areas", "points") if p.get(k) is not None]
+    problems = []
+    if len(given) != 1:
+        problems.append(
+            ParameterError(
+                "demand: give exactly one of 'grid' (population raster), 'areas' (polygons with a population field) "
+                f"or 'points' (points with a weight field); got {', '.join(given) or 'none'}",
+                "grid",
+            )
+        )
+    if (p.get("areas") is not None or p.get("points") is not None) and not p.get("population"):
+        problems.append(ParameterError("demand: 'population' names the field that holds the people of each area or point", "population"))
+    return problems
+
+
+def check_sites(p: Mapping[str, Any]) -> list[ParameterError]:
+    problems = []
+    if p.get("candidates") is None and p.get("lattice_spacing") is None and p.get("existing") is None:
+        problems.append(
+            ParameterError("sites: give 'candidates' (a layer), 'lattice_spacing' (with 'study_area') or 'existing'", "candidates")
+        )
+    if p.get("lattice_spacing") is not None and p.get("study_area") is None:
+        problems.append(ParameterError("sites: a lattice needs a 'study_area' to cover", "study_area"))
+    if p.get("land_use") is not None and not (p.get("allowed_classes") or p.get("forbidden_classes")):
+        problems.append(ParameterError("sites: with 'land_use' give 'allowed_classes' or 'forbidden_classes'", "allowed_classes"))
+    if p.get("allowed_classes") and p.get("forbidden_classes"):
+        problems.append(ParameterError("sites: give 'allowed_classes' or 'forbidden_classes', not both", "forbidden_classes"))
+    return problems
+
+
+def check_service(p: Mapping[str, Any]) -> list[ParameterError]:
+    metric = p.get("metric")
+    problems = []
+    if metric == ServiceMetric.NETWORK:
+        if p.get("time") is None:
+            problems.append(ParameterError("service: network coverage needs a travel 'time', e.g. '8 min'", "time"))
+        if p.get("roads") is None:
+            problems.append(ParameterError("service: network coverage needs a 'roads' layer", "roads"))
+        if p.get("speed_field") is None and p.get("class_field") is None:
+            problems.append(ParameterError("service: name the roads' 'speed_field' (km/h) or 'class_field'", "speed_field"))
+    elif p.get("distance") is None:
+        problems.append(ParameterError(f"service: {metric.value if metric else 'planar'} coverage needs a 'distance', e.g. '5 km'", "distance"))
+    return problems
+
+
+def check_model(p: Mapping[str, Any], kind: ModelKind) -> list[ParameterError]:
+    problems = []
+    if kind == ModelKind.COVER_MOST and p.get("sites") is None and p.get("budget") is None:
+        problems.append(ParameterError("cover-most: give 'sites' (how many new sites) or 'budget'", "sites"))
+    if kind == ModelKind.COVER_TWICE and p.get("sites") is None:
+        problems.append(ParameterError("cover-twice: give 'sites' (how many new sites)", "sites"))
+    if kind == ModelKind.COVER_TARGET and p.get("share") is None:
+        problems.append(ParameterError("cover-target: give the coverage 'share' to reach, e.g. '95 %'", "share"))
+    return problems
+
+
+# ----------------------------------------------------------------------------- steps
+
+
+def load_demand(p: Mapping[str, Any], crs: Any, run: RunContext, coarsen: int | None = None) -> Demand:
+    """Demand from whichever source the parameters name."""
+    from .. import demand as demand_mod
+
+    if p.get("grid") is not None:
+        return demand_mod.demand_from_grid(
+            p["grid"],
+            p["band"],
+            crs=crs,
+            values=p["values"].value,
+            coarsen=p["coarsen"] if coarsen is None else coarsen,
+            clip=p.get("clip"),
+            clip_mode=p["clip_mode"].value,
+            bad_values=p["bad_values"].value,
+        )
+    if p.get("areas") is not None:
+        return demand_mod.demand_from_areas(
+            p["areas"],
+            p["population"],
+            placement=p["placement"].value,
+            weight_raster=p.get("weight_raster"),
+            spacing_m=p.get("spread_spacing"),
+            crs=crs,
+        )
+    return demand_mod.demand_from_points(p["points"], p["population"], crs=crs)
+
+
+def load_sites(p: Mapping[str, Any], crs: Any, run: RunContext) -> tuple[Sites, ScreeningRecord]:
+    from .. import sites as sites_mod
+
+    candidates = p.get("candidates")
+    if candidates is None and p.get("lattice_spacing") is not None:
+        candidates = sites_mod.lattice_candidates(
+            p["study_area"], p["lattice_spacing"], shape=p["lattice_shape"].value, crs=crs
+        )
+    land_use = None
+    if p.get("land_use") is not None:
+        land_use = sites_mod.LandUseMask(
+            p["land_use"], allowed=p.get("allowed_classes"), forbidden=p.get("forbidden_classes"), min_share=p["min_share"]
+        )
+    return sites_mod.screen_sites(
+        candidates,
+        exclude=p.get("exclude") or (),
+        land_use=land_use,
+        existing=p.get("existing"),
+        existing_role_field=p.get("existing_role_field"),
+        existing_role=p["existing_role"].value,
+        cost_field=p.get("cost_field"),
+        default_cost=p["default_cost"],
+        study_area=p.get("study_area"),
+        min_spacing_m=p.get("min_spacing"),
+        label_field=p.get("label_field"),
+        crs=crs,
+    )
+
+
+def build_reach(p: Mapping[str, Any], demand: Demand, sites: Sites, run: RunContext) -> Reach:
+    metric = p["metric"]
+    if metric == ServiceMetric.NETWORK:
+        from ..network import reach_network
+
+        return reach_network(
+            demand,
+            sites,
+            p["roads"],
+            p["time"],
+            speed_field=p.get("speed_field"),
+            class_field=p.get("class_field"),
+            oneway_field=p.get("oneway_field"),
+            offroad_speed_kmh=p["offroad_speed_kmh"],
+            max_snap_m=p["max_snap"],
+            turn_penalty_s=p["turn_penalty"],
+        )
+    from .. import coverage
+
+    if metric == ServiceMetric.GEODESIC:
+        return coverage.reach_geodesic(demand, sites, p["distance"])
+    return coverage.reach_planar(demand, sites, p["distance"], memory_budget_gb=p["memory_gb"])
+
+
+def _solver_options(p: Mapping[str, Any]) -> dict[str, Any]:
+    return {
+        "time_limit": p["time_limit"],
+        "rel_gap": p["gap"],
+        "threads": p["threads"],
+        "seed": p["seed"],
+        "solver": p["solver"].value,
+    }
+
+
+def solve(p: Mapping[str, Any], kind: ModelKind, reach: Reach, run: RunContext) -> Plan:
+    from .. import models
+
+    opts = _solver_options(p)
+    if kind == ModelKind.COVER_ALL:
+        return models.cover_all(reach, use_cost=not p["fewest"], **opts)
+    if kind == ModelKind.COVER_MOST:
+        return models.cover_most(reach, sites=p.get("sites"), budget=p.get("budget"), **opts)
+    if kind == ModelKind.COVER_TARGET:
+        return models.cover_target(reach, p["share"], **opts)
+    return models.cover_twice(reach, sites=p["sites"], first_floor=p["first_floor"], **opts)
+
+
+def tradeoff_rows(p: Mapping[str, Any], reach: Reach, max_sites: int) -> list[dict[str, Any]]:
+    """The trade-off curve as plain rows (sites, people covered, share, bound, gap, status)."""
+    from .. import models
+
+    curve = models.tradeoff(reach, max_sites, **_solver_options(p))
+    return curve.rows()
+
+
+# ----------------------------------------------------------------------------- the whole study
+
+
+@dataclass
+class StudyOutcome:
+    """Everything a study produced, before writing."""
+
+    title: str
+    kind: str
+    params: dict[str, dict[str, Any]]
+    demand: Demand
+    full_demand: Demand | None
+    sites: Sites
+    record: ScreeningRecord
+    reach: Reach
+    plan: Plan
+    today: dict[str, float]
+    audit: dict[str, Any] | None
+    curve: list[dict[str, Any]]
+    service_polygons: list[Any]
+    study_area: Any
+    exclusion_geoms: list[Any]
+    notes: list[str] = field(default_factory=list)
+
+
+def _study_area_geometry(ref: Any, crs: Any) -> Any:
+    if ref is None:
+        return None
+    import shapely
+
+    from ..layers import read_vector, to_crs
+
+    frame = to_crs(read_vector(ref, "study_area"), crs, "study_area")
+    return shapely.union_all(frame.geometry.values)
+
+
+def _exclusion_geometries(exclusions: Any, crs: Any) -> list[Any]:
+    from ..layers import LayerRef, read_vector, to_crs
+
+    geoms: list[Any] = []
+    for exc in exclusions or ():
+        layer = exc.layer
+        try:
+            frame = layer if not isinstance(layer, (LayerRef, str, Path)) else read_vector(layer, "exclusion zones")
+            frame = to_crs(frame, crs, "exclusion zones")
+            geoms.extend(frame.geometry.values)
+        except Exception as exc_:  # the map is a view; a layer the screen already read cannot fail here
+            logger.warning("map: could not draw exclusion layer %s (%s)", layer, exc_)
+    return geoms
+
+
+def _prepare(sections: Mapping[str, Mapping[str, Any]], run: RunContext) -> tuple[Demand, Sites, ScreeningRecord, Reach]:
+    crs = sections["study"].get("crs")
+    with run.step("reading demand"):
+        demand = load_demand(sections["demand"], crs, run)
+    logger.info("demand: %d points, %.0f people, working CRS %s", len(demand), demand.total, demand.crs)
+    with run.step("screening sites"):
+        sites, record = load_sites(sections["sites"], demand.crs, run)
+    logger.info("sites: %d usable (%s)", len(sites), record.counts())
+    with run.step("building coverage"):
+        reach = build_reach(sections["service"], demand, sites, run)
+    logger.info("coverage: %d covering pairs", reach.matrix.nnz)
+    return demand, sites, record, reach
+
+
+def _finish(
+    sections: Mapping[str, Mapping[str, Any]],
+    kind: str,
+    title: str,
+    run: RunContext,
+    prepared: tuple[Demand, Sites, ScreeningRecord, Reach],
+    plan: Plan,
+    curve: list[dict[str, Any]],
+) -> StudyOutcome:
+    from ..areas import service_areas
+    from ..evaluate import audit, coverage_of, existing_sites
+
+    demand, sites, record, reach = prepared
+    dp, sp_, svc = sections["demand"], sections["sites"], sections["service"]
+    today = coverage_of(reach, existing_sites(reach))
+    full_demand = None
+    audit_summary = None
+    if dp.get("grid") is not None and (dp.get("coarsen") or 1) > 1:
+        with run.step("full-resolution audit"):
+            full_demand = load_demand(dp, demand.crs, run, coarsen=1)
+            rebuild = None
+            if svc["metric"] == ServiceMetric.NETWORK:
+                def rebuild(full: Demand, chosen_sites: Sites) -> Reach:
+                    return build_reach(svc, full, chosen_sites, run)
+
+            audit_summary = audit(plan, full_demand, reach=reach, reach_fn=rebuild).summary()
+    study_area = _study_area_geometry(sp_.get("study_area") or dp.get("clip"), demand.crs)
+    with run.step("service areas"):
+        service_polygons = list(service_areas(reach, plan.sites, clip=study_area))
+    exclusion_geoms = _exclusion_geometries(sp_.get("exclude"), demand.crs)
+    notes = [str(n) for n in demand.summary.get("notes", [])]
+    return StudyOutcome(
+        title=title,
+        kind=kind,
+        params={k: dict(v) for k, v in sections.items()},
+        demand=demand,
+        full_demand=full_demand,
+        sites=sites,
+        record=record,
+        reach=reach,
+        plan=plan,
+        today=today,
+        audit=audit_summary,
+        curve=curve,
+        service_polygons=service_polygons,
+        study_area=study_area,
+        exclusion_geoms=exclusion_geoms,
+        notes=notes,
+    )
+
+
+def run_pipeline(
+    sections: Mapping[str, Mapping[str, Any]],
+    kind: ModelKind,
+    run: RunContext,
+    title: str = "geocover study",
+) -> StudyOutcome:
+    """Run one study from converted parameter groups ``study``, ``demand``, ``sites``, ``service``, ``model``."""
+    prepared = _prepare(sections, run)
+    reach = prepared[3]
+    mp = sections["model"]
+    with run.step("solving"):
+        plan = solve(mp, kind, reach, run)
+    curve: list[dict[str, Any]] = []
+    if mp.get("tradeoff"):
+        with run.step("trade-off curve"):
+            curve = tradeoff_rows(mp, reach, int(mp["tradeoff"]))
+    return _finish(sections, kind.value, title, run, prepared, plan, curve)
+
+
+def evaluate_given_sites(sections: Mapping[str, Mapping[str, Any]], run: RunContext, title: str = "geocover audit") -> StudyOutcome:
+    """Evaluate every usable site as open (e.g. today's stations): no model is solved."""
+    from ..evaluate import plan_from_sites
+
+    prepared = _prepare(sections, run)
+    reach = prepared[3]
+    plan = plan_from_sites(reach, np.arange(reach.shape[1]), model="audit")
+    return _finish(sections, "audit", title, run, prepared, plan, [])
+
+
+# ----------------------------------------------------------------------------- writing
+
+
+def jsonable(value: Any) -> Any:
+    """Parameters and summaries as JSON values (paths as text, enums as their value)."""
+    import enum
+
+    from ..layers import LayerRef
+
+    if isinstance(value, enum.Enum):
+        return value.value
+    if isinstance(value, (Path, LayerRef)):
+        return str(value)
+    if isinstance(value, Mapping):
+        return {str(k): jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [jsonable(v) for v in value]
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if hasattr(value, "__dataclass_fields__"):
+        return {k: jsonable(getattr(value, k)) for k in value.__dataclass_fields__}
+    if hasattr(value, "geometry") and hasattr(value, "crs"):
+        return f"<GeoDataFrame with {len(value)} features>"
+    return value
+
+
+def input_files(params: Mapping[str, Any]) -> list[Path]:
+    """Every input file named anywhere in the parameters, once, in order."""
+    from ..layers import LayerRef
+
+    found: list[Path] = []
+
+    def walk(value: Any) -> None:
+        if isinstance(value, LayerRef):
+            found.append(value.path)
+        elif isinstance(value, Path):
+            found.append(value)
+        elif isinstance(value, Mapping):
+            for v in value.values():
+                walk(v)
+        elif isinstance(value, (list, tuple)):
+            for v in value:
+                walk(v)
+        elif hasattr(value, "layer") and hasattr(value, "setback_m"):
+            walk(value.layer)
+        elif hasattr(value, "raster") and hasattr(value, "min_share"):
+            walk(value.raster)
+
+    walk({k: v for k, v in params.items() if k != "output"})
+    unique: list[Path] = []
+    for path in found:
+        resolved = path.resolve()
+        if resolved not in unique and resolved.is_file():
+            unique.append(resolved)
+    return unique
+
+
+def inputs_manifest(params: Mapping[str, Any]) -> list[dict[str, Any]]:
+    from ..layers import file_digest
+
+    return [{"path": str(p), "bytes": p.stat().st_size, "sha256": file_digest(p)} for p in input_files(params)]
+
+
+def people_totals(outcome: StudyOutcome) -> dict[str, float]:
+    plan = outcome.plan
+    screened_out = 0.0  # screening removes sites, not people
+    return {
+        "people_in": float(outcome.demand.summary.get("people_in", outcome.demand.total)),
+        "people_as_demand": outcome.demand.total,
+        "people_after_screening": outcome.demand.total - screened_out,
+        "people_covered": plan.covered_weight,
+        "people_left_out": plan.left_out_weight,
+        "people_unreachable": plan.uncoverable_weight,
+    }
+
+
+def build_manifest(outcome: StudyOutcome, run: RunContext, outputs: Mapping[str, Path]) -> dict[str, Any]:
+    from ..versions import show_versions
+
+    plan = outcome.plan
+    return {
+        "geocover_manifest": 1,
+        "title": outcome.title,
+        "model": outcome.kind,
+        "working_crs": outcome.demand.crs,
+        "service_rule": outcome.reach.rule.describe(),
+        "inputs": inputs_manifest(outcome.params),
+        "parameters": jsonable(outcome.params),
+        "demand_summary": jsonable(outcome.demand.summary),
+        "screening": outcome.record.counts(),
+        "plan": jsonable(plan.summary()),
+        "chosen_sites": [str(s) for s in outcome.sites.label[plan.sites]],
+        "people": people_totals(outcome),
+        "today": outcome.today,
+        "audit": jsonable(outcome.audit),
+        "tradeoff": jsonable(outcome.curve),
+        "outputs": {k: Path(v).name for k, v in outputs.items()},
+        "versions": show_versions(),
+        "timings_s": dict(run.timings),
+    }
+
+
+def report_data(outcome: StudyOutcome) -> Any:
+    from ..evaluate import coverage_of, site_figures
+    from ..outputs import demand_status
+    from ..report import ReportData
+
+    plan, reach, sites = outcome.plan, outcome.reach, outcome.sites
+    figures = site_figures(reach, plan.sites)
+    role_names = {int(r): r.label for r in SiteRole}
+    sites_table = [
+        {
+            "site": str(sites.label[j]),
+            "role": role_names[int(sites.role[j])],
+            "cost": float(sites.cost[j]),
+            "people covered": float(figures.covered[k]),
+            "people only this site covers": float(figures.unique[k]),
+            "greedy rank": int(figures.rank[k]),
+        }
+        for k, j in enumerate(plan.sites)
+    ]
+    sites_table.sort(key=lambda row: row["greedy rank"])
+    planned = coverage_of(reach, plan.sites)
+    today_vs_plan = [
+        {"": "today (existing facilities)", "sites": outcome.today["sites"], "people covered": outcome.today["covered"],
+         "share of people": outcome.today["share_of_total"]},
+        {"": "with the plan", "sites": planned["sites"], "people covered": planned["covered"],
+         "share of people": planned["share_of_total"]},
+    ]
+    status = demand_status(reach, plan)
+    demand = outcome.demand
+    existing = np.flatnonzero(np.isin(sites.role, [SiteRole.KEPT, SiteRole.OPTIONAL]))
+    summary = {
+        "sites in the plan": len(plan.sites),
+        "of which existing": int(np.isin(plan.sites, existing).sum()),
+        "people in the study": plan.total_weight,
+        "people covered": plan.covered_weight,
+        "share covered": plan.covered_weight / plan.total_weight if plan.total_weight else 0.0,
+        "people no site can reach": plan.uncoverable_weight,
+        "people the plan leaves out": plan.left_out_weight,
+        "objective": plan.objective,
+        "proven bound": plan.bound,
+        "gap": plan.gap,
+        "solver status": plan.status.value,
+        "solver": plan.solver,
+        "solve seconds": plan.seconds,
+    }
+    cell = float(np.median(demand.footprint) * math.sqrt(2.0) * 2) if len(demand) and demand.footprint.any() else 100.0
+    return ReportData(
+        title=outcome.title,
+        crs=str(outcome.demand.crs),
+        rule=reach.rule.describe(),
+        model=outcome.kind,
+        plan_summary=summary,
+        sites_table=sites_table,
+        today_vs_plan=today_vs_plan,
+        uncovered_by_reason={"unreachable": plan.uncoverable_weight, "left_out": plan.left_out_weight},
+        audit=outcome.audit,
+        screening=outcome.record.counts(),
+        parameters={f"{sec}.{k}": jsonable(v) for sec, vals in outcome.params.items() for k, v in vals.items() if v not in (None, ())},
+        inputs=[{"file": Path(i["path"]).name, "bytes": i["bytes"], "sha256": i["sha256"][:16] + "..."} for i in inputs_manifest(outcome.params)],
+        notes=list(outcome.notes) + list(plan.log),
+        tradeoff=outcome.curve,
+        demand_xy=demand.xy,
+        demand_weight=demand.weight,
+        demand_cell_m=cell,
+        study_area=outcome.study_area,
+        exclusions=outcome.exclusion_geoms,
+        service_areas=outcome.service_polygons,
+        chosen_xy=sites.xy[plan.sites],
+        existing_xy=sites.xy[existing],
+        unreachable_xy=demand.xy[(status == "unreachable") & (demand.weight > 0)],
+        left_out_xy=demand.xy[(status == "left_out") & (demand.weight > 0)],
+    )
+
+
+def write_outputs(outcome: StudyOutcome, out_dir: Path, run: RunContext, name: str = "study") -> dict[str, Path]:
+    """Write ``NAME.gpkg``, ``report.html`` and ``manifest.json`` into ``out_dir``, each atomically."""
+    from ..layers import atomic_output, write_layers
+    from ..outputs import study_layers
+    from ..report import write_report
+
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    inputs = tuple(input_files(outcome.params))
+    gpkg = out_dir / f"{name}.gpkg"
+    with run.step("writing layers"):
+        layers = study_layers(outcome.reach, outcome.plan, outcome.record, outcome.service_polygons)
+        write_layers(gpkg, layers, inputs=inputs)
+    with run.step("writing report"):
+        report = write_report(out_dir / "report.html", report_data(outcome))
+    outputs = {"layers": gpkg, "report": report, "manifest": out_dir / "manifest.json"}
+    manifest = build_manifest(outcome, run, outputs)
+    with atomic_output(outputs["manifest"], inputs) as tmp:
+        tmp.write_text(json.dumps(manifest, indent=2, sort_keys=False) + os.linesep, encoding="utf-8")
+    return outputs
+
+
+def summary_lines(outcome: StudyOutcome) -> list[str]:
+    """The short summary the CLI prints."""
+    plan = outcome.plan
+    total = plan.total_weight or 1.0
+    chosen = ", ".join(str(s) for s in outcome.sites.label[plan.sites][:12])
+    more = "" if len(plan.sites) <= 12 else f" and {len(plan.sites) - 12} more"
+    lines = [
+        f"{outcome.title}: {outcome.kind}, {outcome.reach.rule.describe()}",
+        f"  sites chosen:       {len(plan.sites)} ({chosen}{more})",
+        f"  people served:      {plan.covered_weight:,.0f} of {plan.total_weight:,.0f} ({100 * plan.covered_weight / total:.1f} %)",
+        f"  people uncovered:   {plan.left_out_weight + plan.uncoverable_weight:,.0f} "
+        f"({plan.uncoverable_weight:,.0f} beyond reach of any site, {plan.left_out_weight:,.0f} left out by the plan)",
+        f"  today's facilities: {outcome.today['covered']:,.0f} people ({100 * outcome.today['share_of_total']:.1f} %)",
+        f"  solver:             {plan.solver}, status {plan.status.value}, objective {plan.objective:,.6g}, "
+        f"bound {plan.bound:,.6g}, gap {100 * plan.gap:.2f} %",
+    ]
+    if outcome.audit:
+        a = outcome.audit
+        lines.append(
+            f"  full-resolution:    {a['people_covered_full_resolution']:,.0f} people covered "
+            f"(aggregation error {a['aggregation_error']:+,.0f}, bound {a['aggregation_error_bound']:,.0f})"
+        )
+    return lines
