@@ -91,6 +91,8 @@ def plan_sites_layer(reach: Reach, plan: Plan) -> "gpd.GeoDataFrame":
 def service_areas_layer(reach: Reach, plan: Plan, polygons: Sequence[Any]) -> "gpd.GeoDataFrame":
     assert reach.sites is not None
     chosen = plan.sites
+    if len(polygons) != len(chosen):
+        raise ValueError(f"service areas: {len(polygons)} polygons for {len(chosen)} chosen sites")
     figures = site_figures(reach, chosen)
     limit_field = "limit_time_s" if reach.rule.metric == Metric.NETWORK else "limit_dist_m"
     data = {
