@@ -59,11 +59,11 @@ CENTRE = np.array([X0 + 20_000.0, Y0 + 15_000.0])
 TARGET_TOTAL = 251_400.0  # people on the island (about 250,000)
 
 ISLAND_NAME = "Tarrow Isle"
-RIVER_NAME = "River Ellom"
+RIVER_NAME = "River Sarrowen"
 TRIBUTARY_NAME = "Dransick Burn"
 # name, population, fraction of the way from island centre to coast, bearing (deg, math convention)
 TOWNS = [
-    ("Port Ellomer", 60_000.0),  # at the river mouth, placed from the river below
+    ("Port Sarrowen", 60_000.0),  # at the river mouth, placed from the river below
     ("Varrowby", 45_000.0, 0.58, 192.0),
     ("Fenlisk", 30_000.0, 0.55, 38.0),
 ]
@@ -78,7 +78,7 @@ VILLAGES = [
     ("Yarlish", 3_500.0),
 ]
 RESERVE_NAME = "Skarrow Moor"
-WETLAND_NAME = "Ellom Fens"
+WETLAND_NAME = "Sarrowen Fens"
 LAKE_NAME = "Skarrow Tarn"  # only appears as water in the land-use grid
 
 LAND_USE_CLASSES = [
@@ -390,6 +390,7 @@ def build_grids(rng, g):
         dens[no_people | forest & (core < 0.2)] = 0.0
         pop += s["pop"] * dens / dens.sum()
     settled = pop.sum()
+    g["settled_people"] = float(settled)
 
     # rural people: clustered farms and hamlets, none in forest, sparse by the coast
     rural = rng.gamma(0.6, 1.0, size=(NROWS, NCOLS)) * np.exp(0.8 * noise(rng, 4.0))
@@ -738,7 +739,7 @@ def build_stations(g, lattices, roads):
     stations = gpd.GeoDataFrame(
         {
             "station_id": ["ST-01", "ST-02", "ST-03", "ST-04"],
-            "name": [f"{t0['name']} Central", f"{t1['name']} North", "Meskett", "Ellom Bridge"],
+            "name": [f"{t0['name']} Central", f"{t1['name']} North", "Meskett", "Sarrowen Bridge"],
             "status": ["kept", "kept", "kept", "optional"],
             "cost": [0.0, 0.0, 0.0, 0.0],
         },
@@ -794,8 +795,7 @@ def build_parcels(rng, g, roads, n_total=300, n_hard=45, n_x=18):
             continue
         if len(road_tree.query(quad, predicate="dwithin", distance=8.0)):
             continue
-        if any(quad.distance(q) < 30.0 for q in placed[-400:]) or any(
-                q.intersects(quad.buffer(30.0)) for q in placed):
+        if any(quad.distance(q) < 30.0 for q in placed):  # parcels keep 30 m apart
             continue
         if hard_b.intersects(quad):
             kind = "hard"
@@ -815,7 +815,7 @@ def build_parcels(rng, g, roads, n_total=300, n_hard=45, n_x=18):
         d_town = min(np.hypot(*(cxy - t["xy"])) for t in towns)
         value = np.exp(-d_town / 5_000.0)  # land is dearer near towns
         size = q.area / 200.0**2
-        cost = 800_000.0 + 1_400_000.0 * (0.6 * value + 0.25 * size) + rng.normal(0.0, 90_000.0)
+        cost = 800_000.0 + 1_700_000.0 * (0.65 * value + 0.35 * size) + rng.normal(0.0, 120_000.0)
         costs.append(round(float(np.clip(cost, 800_000.0, 2_500_000.0)), -3))
         owners.append("public" if rng.uniform() < (0.45 if d_town < 3_000 else 0.25) else "private")
     return gpd.GeoDataFrame(
@@ -905,12 +905,14 @@ def main(argv=None) -> int:
     hard = shapely.union_all([g["flood_ae_a"], g["reserve"], g["wetland"]]).buffer(50.0)
     near_any = shapely.union_all([hard, g["flood_x"].buffer(50.0)])
     print(f"grid total      {grid_total:12.1f} people on {int((pop32 > 0).sum())} cells")
+    print(f"  in towns and villages {g['settled_people']:.0f}, rural {grid_total - g['settled_people']:.0f}")
     print(f"census total    {int(census['pop'].sum()):12d} in {len(census)} areas "
           f"(area-weighted exact {exact.sum():.1f})")
     print(f"roads           {len(roads)} segments "
           f"({', '.join(f'{k} {v}' for k, v in roads.road_class.value_counts().sort_index().items())}), "
           f"{int(roads.oneway.sum())} one-way")
-    print(f"flood zones     {len(zones)} ({', '.join(f'{k} {v}' for k, v in zones.zone_class.value_counts().sort_index().items())})")
+    per_class = zones.zone_class.value_counts().sort_index()
+    print(f"flood zones     {len(zones)} ({', '.join(f'{k} {v}' for k, v in per_class.items())})")
     print(f"parcels         {len(parcels)}; within 50 m of A/AE/protected "
           f"{int(parcels.intersects(hard).sum())}, of any flood zone/protected "
           f"{int(parcels.intersects(near_any).sum())}")
