@@ -7,7 +7,10 @@ for a coverage share), ``cover_twice`` (backup coverage) and ``tradeoff``
 (or a :class:`Tradeoff`) that carries its status, best bound and gap.
 """
 
+from .backup import cover_twice
+from .curve import Tradeoff, tradeoff
 from .lscp import cover_all
 from .mclp import cover_most
+from .target import cover_target
 
-__all__ = ["cover_all", "cover_most"]
+__all__ = ["cover_all", "cover_most", "cover_target", "cover_twice", "tradeoff", "Tradeoff"]

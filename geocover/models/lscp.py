@@ -106,6 +106,9 @@ def solve_cover_core(
     if res.status == "infeasible" and best is None:
         return None, math.nan, math.nan, "infeasible"
     mip_bound = res.bound if math.isfinite(res.bound) else -math.inf
+    # a solver bound above a known cover is not a bound (e.g. reported before the root LP): ignore it
+    if best is not None and mip_bound > best_obj + 1e-6 * max(1.0, abs(best_obj)):
+        mip_bound = -math.inf
     if res.status in ("optimal", "feasible"):
         mip_bound = min(mip_bound, res.objective)  # CBC reports the bound of the tree; never above the incumbent
     if res.x is not None:

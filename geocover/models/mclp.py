@@ -47,7 +47,7 @@ class MostCore:
     stats: list[dict[str, Any]] = field(default_factory=list)
 
 
-def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominance: bool = True) -> MostCore:
+def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominance: bool = True, optional_free: bool = True, unit_cost: bool = False) -> MostCore:
     """Take kept sites out, merge identical rows, drop dominated columns.
 
     ``resource`` is "count" (dominance needs a column that counts no more
@@ -55,6 +55,9 @@ def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominanc
     maximal covering and coverage targets because weights are non-negative:
     replacing a column by one that covers a superset at no more resource
     never loses weight.  It is skipped for backup coverage.
+    ``optional_free`` prices optional existing sites at 0 (MCLP); otherwise
+    they keep their cost (coverage targets, like LSCP).  ``unit_cost``
+    prices every site at 1 (fewest sites).
     """
     prep = prepare(reach)
     m = reach.shape[1]
@@ -77,8 +80,9 @@ def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominanc
     w = prep.weight[rows]
     sub, w, _ = merge_rows(sub, w)
     stats.append({"step": "merge identical rows", "rows": int(sub.shape[0]), "nnz": int(sub.nnz)})
-    cost = np.where(prep.optional, 0.0, prep.cost)
-    paid = ~prep.optional
+    base = np.ones(m) if unit_cost else prep.cost
+    cost = np.where(prep.optional, 0.0, base) if optional_free else base.copy()
+    paid = ~prep.optional if optional_free else np.ones(m, dtype=bool)
     if reduce and allow_dominance and sub.shape[0]:
         in_pair = np.zeros(m, dtype=bool)
         in_pair[pairs.ravel()] = True
@@ -200,7 +204,9 @@ def solve_most_core(
     clock.mark("mip")
     log.extend(r.log)
     bound = ub
-    if math.isfinite(r.bound) and r.status in ("optimal", "feasible", "nosolution"):
+    # a solver bound below a known feasible plan is not a bound (e.g. reported before the root LP): ignore it
+    valid_bound = math.isfinite(r.bound) and r.status in ("optimal", "feasible", "nosolution") and r.bound >= best_val - tol
+    if valid_bound:
         bound = min(bound, r.bound)
     if r.x is not None:
         chosen = np.flatnonzero(r.x[:m] > 0.5)
@@ -214,7 +220,7 @@ def solve_most_core(
     bound = max(bound, best_val)
     if best_val >= bound - tol or (bound - best_val) / max(best_val, 1e-9) <= rel_gap:
         return best, best_val, bound, "optimal"
-    proven = r.status in ("optimal", "feasible", "nosolution") and math.isfinite(r.bound)
+    proven = valid_bound
     return best, best_val, bound, "feasible" if proven or bound < total - tol else "heuristic"
 
 
