@@ -1,0 +1,166 @@
+"""Shared plumbing: parameter checks, the clock, and turning a choice into a Plan."""
+
+from __future__ import annotations
+
+import logging
+import math
+import time
+from dataclasses import dataclass
+from typing import Any, Iterable
+
+import numpy as np
+import scipy.sparse as sp
+
+from ..errors import ParameterError
+from ..values import Plan, Reach, SiteRole, SolveStatus
+from .reduce import as_pattern
+
+logger = logging.getLogger(__name__)
+
+
+class Clock:
+    """Wall-clock budget for one model call."""
+
+    def __init__(self, limit: float) -> None:
+        self.t0 = time.perf_counter()
+        self.limit = float(limit)
+        self.phases: dict[str, float] = {}
+        self._last = self.t0
+
+    @property
+    def elapsed(self) -> float:
+        return time.perf_counter() - self.t0
+
+    @property
+    def left(self) -> float:
+        return self.limit - self.elapsed
+
+    @property
+    def deadline(self) -> float:
+        return self.t0 + self.limit
+
+    def mark(self, phase: str) -> None:
+        now = time.perf_counter()
+        self.phases[phase] = self.phases.get(phase, 0.0) + now - self._last
+        self._last = now
+
+
+def check_common(time_limit: Any, rel_gap: Any, threads: Any, seed: Any, solver: Any) -> None:
+    if not (isinstance(time_limit, (int, float)) and math.isfinite(time_limit) and time_limit > 0):
+        raise ParameterError(f"time_limit: must be a positive number of seconds, got {time_limit!r}", param="time_limit")
+    if not (isinstance(rel_gap, (int, float)) and 0 <= rel_gap < 1):
+        raise ParameterError(f"rel_gap: must be in [0, 1), got {rel_gap!r}", param="rel_gap")
+    if not (isinstance(threads, (int, np.integer)) and threads >= 1):
+        raise ParameterError(f"threads: must be a whole number >= 1, got {threads!r}", param="threads")
+    if not isinstance(seed, (int, np.integer)):
+        raise ParameterError(f"seed: must be a whole number, got {seed!r}", param="seed")
+    if str(solver).lower() not in ("cbc", "highs"):
+        raise ParameterError(f"solver: unknown solver {solver!r}; use 'cbc' or 'highs'", param="solver")
+    if str(solver).lower() == "highs":
+        from .solver import require_highs
+
+        require_highs()
+
+
+def check_reach(reach: Any) -> Reach:
+    if not isinstance(reach, Reach):
+        raise ParameterError(
+            f"reach: expected a geocover Reach, got {type(reach).__name__}; wrap a plain matrix with Reach.from_sparse(matrix, weight, cost)",
+            param="reach",
+        )
+    return reach
+
+
+def conflict_matrix(pairs: np.ndarray, m: int) -> sp.csr_matrix:
+    """Symmetric site x site matrix of spacing conflicts."""
+    pairs = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
+    pairs = pairs[pairs[:, 0] != pairs[:, 1]]
+    r = np.concatenate([pairs[:, 0], pairs[:, 1]])
+    c = np.concatenate([pairs[:, 1], pairs[:, 0]])
+    mat = sp.csr_matrix((np.ones(len(r), dtype=np.int8), (r, c)), shape=(m, m))
+    mat.data[:] = 1
+    return mat
+
+
+def kept_conflict(reach: Reach) -> bool:
+    pairs = reach.close_pairs
+    if not len(pairs):
+        return False
+    kept = reach.role == SiteRole.KEPT
+    return bool((kept[pairs[:, 0]] & kept[pairs[:, 1]]).any())
+
+
+def violates_spacing(sites: np.ndarray, pairs: np.ndarray, m: int) -> bool:
+    if not len(pairs):
+        return False
+    x = np.zeros(m, dtype=bool)
+    x[np.asarray(sites, dtype=np.int64)] = True
+    return bool((x[pairs[:, 0]] & x[pairs[:, 1]]).any())
+
+
+def integral(values: np.ndarray) -> bool:
+    v = np.asarray(values, dtype=np.float64)
+    return bool(np.all(np.abs(v - np.round(v)) < 1e-9))
+
+
+def make_plan(
+    reach: Reach,
+    sites: Iterable[int],
+    *,
+    model: str,
+    objective: float,
+    bound: float,
+    status: SolveStatus,
+    solver: str,
+    clock: Clock,
+    params: dict[str, Any],
+    log: list[str],
+) -> Plan:
+    """Evaluate the chosen sites on the *original* reach and wrap them up."""
+    chosen = np.unique(np.asarray(list(sites), dtype=np.int64))
+    count = reach.coverage_count(chosen) if reach.shape[0] else np.zeros(0, dtype=np.int64)
+    covered = float(reach.weight[count > 0].sum())
+    params = dict(params)
+    params["phase_seconds"] = {k: round(v, 4) for k, v in clock.phases.items()}
+    return Plan(
+        sites=chosen,
+        model=model,
+        objective=float(objective),
+        bound=float(bound),
+        status=status,
+        solver=solver,
+        seconds=clock.elapsed,
+        coverage_count=count,
+        covered_weight=covered,
+        uncoverable_weight=reach.uncoverable_weight,
+        total_weight=float(reach.weight.sum()),
+        params=params,
+        log=tuple(log),
+    )
+
+
+@dataclass
+class Prepared:
+    """The coverable part of a reach as a 0/1 pattern, and site facts."""
+
+    pattern: sp.csr_matrix  #: coverable rows x all sites
+    rows: np.ndarray  #: original row index of each pattern row
+    weight: np.ndarray
+    cost: np.ndarray
+    kept: np.ndarray  #: bool per site
+    optional: np.ndarray  #: bool per site
+    pairs: np.ndarray
+
+
+def prepare(reach: Reach) -> Prepared:
+    pat = as_pattern(reach.matrix)
+    rows = np.flatnonzero(np.diff(pat.indptr) > 0)
+    return Prepared(
+        pattern=pat[rows],
+        rows=rows,
+        weight=np.asarray(reach.weight, dtype=np.float64)[rows],
+        cost=np.asarray(reach.cost, dtype=np.float64),
+        kept=np.asarray(reach.role) == SiteRole.KEPT,
+        optional=np.asarray(reach.role) == SiteRole.OPTIONAL,
+        pairs=np.asarray(reach.close_pairs, dtype=np.int64).reshape(-1, 2),
+    )

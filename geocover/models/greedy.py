@@ -1,0 +1,231 @@
+"""Greedy plans and local search: the fast first answer every model starts from.
+
+* :func:`greedy_cover` -- Chvatal's (1979, Mathematics of Operations
+  Research 4(3)) greedy for weighted set covering: repeatedly open the site
+  with the most uncovered rows per unit cost; cost <= H(d) x optimum, d the
+  largest column.
+* :func:`prune_cover` -- drop redundant sites (most expensive first).
+* :func:`greedy_most` -- greedy maximal covering with p sites or a budget.
+* :func:`swap_most` -- vertex substitution (Teitz & Bart 1968, Operations
+  Research 16(5)): best single swap, repeated while it improves.
+
+All work on 0/1 CSR matrices; ties are broken by the lowest site index.
+"""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+import scipy.sparse as sp
+
+__all__ = ["greedy_cover", "prune_cover", "greedy_most", "swap_most", "covered_weight"]
+
+_EPS = 1e-9
+
+
+def covered_weight(mat: sp.csr_matrix, weight: np.ndarray, chosen: np.ndarray) -> float:
+    """Weight of the rows covered by at least one chosen column."""
+    x = np.zeros(mat.shape[1], dtype=np.int8)
+    x[np.asarray(chosen, dtype=np.int64)] = 1
+    hit = np.asarray(mat @ x).ravel() > 0
+    return float(np.asarray(weight)[hit].sum())
+
+
+def greedy_cover(mat: sp.csr_matrix, cost: np.ndarray, *, allowed: np.ndarray | None = None, conflicts: sp.csr_matrix | None = None) -> np.ndarray | None:
+    """Chvatal's greedy set cover of every row; None if some row cannot be covered.
+
+    Parameters
+    ----------
+    mat : csr_matrix (rows x columns, 0/1)
+    cost : (m,) array of non-negative costs
+    allowed : (m,) bool, optional
+        Columns that may be opened.
+    conflicts : csr_matrix (m x m), optional
+        Opening column j forbids every column k with ``conflicts[j, k] != 0``.
+    """
+    n, m = mat.shape
+    cost = np.asarray(cost, dtype=np.float64)
+    csc = sp.csc_matrix(mat)
+    uncovered = np.ones(n, dtype=bool)
+    count = np.diff(csc.indptr).astype(np.float64)  # uncovered rows per column
+    ok = np.ones(m, dtype=bool) if allowed is None else np.asarray(allowed, dtype=bool).copy()
+    chosen: list[int] = []
+    left = n
+    while left:
+        score = np.where(ok & (count > 0), count / np.maximum(cost, _EPS), -1.0)
+        # zero-cost columns that cover something come first
+        score = np.where(ok & (count > 0) & (cost <= 0), np.inf, score)
+        j = int(np.argmax(score))
+        if score[j] <= 0:
+            return None
+        chosen.append(j)
+        ok[j] = False
+        if conflicts is not None:
+            ok[conflicts.indices[conflicts.indptr[j] : conflicts.indptr[j + 1]]] = False
+        rows = csc.indices[csc.indptr[j] : csc.indptr[j + 1]]
+        rows = rows[uncovered[rows]]
+        uncovered[rows] = False
+        left -= len(rows)
+        if len(rows):
+            sub = mat[rows]
+            count -= np.bincount(sub.indices, minlength=m)
+    return np.array(sorted(chosen), dtype=np.int64)
+
+
+def prune_cover(mat: sp.csr_matrix, cost: np.ndarray, chosen: np.ndarray, *, removable: np.ndarray | None = None) -> np.ndarray:
+    """Remove sites whose rows are all covered by other chosen sites.
+
+    Tries the most expensive site first (ties: highest index first), so the
+    result is a minimal cover and deterministic.
+    """
+    chosen = np.asarray(chosen, dtype=np.int64)
+    if len(chosen) == 0:
+        return chosen
+    cost = np.asarray(cost, dtype=np.float64)
+    csc = sp.csc_matrix(mat)
+    x = np.zeros(mat.shape[1], dtype=np.int64)
+    x[chosen] = 1
+    cover = np.asarray(mat @ x).ravel()
+    order = chosen[np.lexsort((-chosen, -cost[chosen]))]
+    keep = np.ones(mat.shape[1], dtype=bool)
+    for j in order:
+        if removable is not None and not removable[j]:
+            continue
+        rows = csc.indices[csc.indptr[j] : csc.indptr[j + 1]]
+        if (cover[rows] >= 2).all():
+            cover[rows] -= 1
+            keep[j] = False
+    return np.array([j for j in chosen if keep[j]], dtype=np.int64)
+
+
+def greedy_most(
+    mat: sp.csr_matrix,
+    weight: np.ndarray,
+    *,
+    sites: int | None = None,
+    resource: np.ndarray | None = None,
+    budget: float | None = None,
+    allowed: np.ndarray | None = None,
+    conflicts: sp.csr_matrix | None = None,
+    start: np.ndarray | None = None,
+) -> np.ndarray:
+    """Greedy maximal covering.
+
+    With ``sites`` opens up to that many columns whose ``resource`` is
+    positive (columns with resource 0 are free and open first if they add
+    weight); with ``budget`` opens columns by weight gained per unit of
+    ``resource`` while they fit.  ``start`` columns are open from the start.
+    """
+    n, m = mat.shape
+    weight = np.asarray(weight, dtype=np.float64)
+    res = np.ones(m) if resource is None else np.asarray(resource, dtype=np.float64)
+    csc = sp.csc_matrix(mat)
+    uncovered = np.ones(n, dtype=bool)
+    gain = np.asarray(csc.T @ weight).ravel() if n else np.zeros(m)
+    ok = np.ones(m, dtype=bool) if allowed is None else np.asarray(allowed, dtype=bool).copy()
+    chosen: list[int] = []
+
+    def take(j: int) -> None:
+        nonlocal gain
+        chosen.append(j)
+        ok[j] = False
+        if conflicts is not None:
+            ok[conflicts.indices[conflicts.indptr[j] : conflicts.indptr[j + 1]]] = False
+        rows = csc.indices[csc.indptr[j] : csc.indptr[j + 1]]
+        rows = rows[uncovered[rows]]
+        uncovered[rows] = False
+        if len(rows):
+            sub = mat[rows]
+            gain = gain - np.bincount(sub.indices, weights=np.repeat(weight[rows], np.diff(sub.indptr)), minlength=m)
+
+    for j in [] if start is None else list(np.asarray(start, dtype=np.int64)):
+        take(int(j))
+    used = 0.0 if sites is None else float(sum(1 for j in chosen if res[j] > 0))
+    spent = float(res[chosen].sum()) if chosen else 0.0
+    while True:
+        free = ok & (res <= 0) & (gain > _EPS)
+        if free.any():
+            take(int(np.argmax(np.where(free, gain, -1.0))))
+            continue
+        if sites is not None:
+            if used >= sites:
+                break
+            score = np.where(ok & (gain > _EPS), gain, -1.0)
+        else:
+            assert budget is not None
+            fits = ok & (gain > _EPS) & (res <= budget - spent + 1e-9)
+            score = np.where(fits, gain / np.maximum(res, _EPS), -1.0)
+        j = int(np.argmax(score))
+        if score[j] <= 0:
+            break
+        take(j)
+        used += 1
+        spent += res[j]
+    return np.array(sorted(chosen), dtype=np.int64)
+
+
+def swap_most(
+    mat: sp.csr_matrix,
+    weight: np.ndarray,
+    chosen: np.ndarray,
+    *,
+    swappable: np.ndarray | None = None,
+    candidates: np.ndarray | None = None,
+    resource: np.ndarray | None = None,
+    budget: float | None = None,
+    conflicts: sp.csr_matrix | None = None,
+    max_rounds: int = 200,
+    deadline: float | None = None,
+) -> np.ndarray:
+    """Best-improvement single swaps (Teitz & Bart 1968) until none improves.
+
+    The gain of swapping chosen j for k is computed for all pairs at once:
+    ``gain(k) - loss(j) + overlap(j, k)`` where overlap is the weight of rows
+    covered only by j that k also covers.  Ties: lowest (j, k).
+    """
+    n, m = mat.shape
+    weight = np.asarray(weight, dtype=np.float64)
+    csc = sp.csc_matrix(mat)
+    chosen = np.array(sorted(np.asarray(chosen, dtype=np.int64)), dtype=np.int64)
+    res = np.ones(m) if resource is None else np.asarray(resource, dtype=np.float64)
+    cand_ok = np.ones(m, dtype=bool) if candidates is None else np.asarray(candidates, dtype=bool)
+    for _ in range(max_rounds):
+        if deadline is not None and time.perf_counter() > deadline:
+            break
+        x = np.zeros(m, dtype=np.int64)
+        x[chosen] = 1
+        cover = np.asarray(mat @ x).ravel()
+        w0 = np.where(cover == 0, weight, 0.0)
+        w1 = np.where(cover == 1, weight, 0.0)
+        add_gain = np.asarray(csc.T @ w0).ravel()
+        out = chosen if swappable is None else chosen[np.asarray(swappable, dtype=bool)[chosen]]
+        if len(out) == 0:
+            break
+        loss = np.asarray(csc[:, out].T @ w1).ravel()
+        sub = csc[:, out].T.tocsr()  # |out| x n
+        overlap = (sub.multiply(w1[None, :]) @ csc).toarray() if n else np.zeros((len(out), m))
+        delta = add_gain[None, :] - loss[:, None] + overlap
+        blocked = np.zeros(m, dtype=bool)
+        blocked[chosen] = True
+        blocked |= ~cand_ok
+        delta[:, blocked] = -np.inf
+        if budget is not None:
+            spent = res[chosen].sum()
+            fits = (spent - res[out][:, None] + res[None, :]) <= budget + 1e-9
+            delta[~fits] = -np.inf
+        else:
+            # a swap must keep the count of p-sites: resource-free may not replace paid ones
+            delta[(res[out][:, None] > 0) != (res[None, :] > 0)] = -np.inf
+        if conflicts is not None and conflicts.nnz:
+            for a, j in enumerate(out):
+                others = np.setdiff1d(chosen, [j])
+                bad = np.asarray(conflicts[others].sum(axis=0)).ravel() > 0
+                delta[a, bad] = -np.inf
+        flat = int(np.argmax(delta))
+        a, k = divmod(flat, m)
+        best = delta[a, k]
+        if not np.isfinite(best) or best <= 1e-9 * max(1.0, float(weight.sum())):
+            break
+        chosen = np.array(sorted(set(chosen.tolist()) - {int(out[a])} | {int(k)}), dtype=np.int64)
+    return chosen
