@@ -488,12 +488,471 @@ def _assemble(chunks: list[tuple[np.ndarray, ...]]) -> tuple[np.ndarray, np.ndar
     return xy, weight, unit, footprint
 
 
-# --------------------------------------------------------------------------- areas and points (below)
+# --------------------------------------------------------------------------- areas and points
 
 
-def demand_from_areas(*args: Any, **kwargs: Any) -> Demand:  # pragma: no cover - replaced below
-    raise NotImplementedError
+def _read_layer(layer: Any, what: str) -> "gpd.GeoDataFrame":
+    import geopandas as gpd
+
+    from .layers import read_vector
+
+    if isinstance(layer, gpd.GeoDataFrame):
+        if layer.crs is None:
+            raise CRSError(f"{what}: the GeoDataFrame has no CRS; set the one it was made in with frame.set_crs('EPSG:...')")
+        if len(layer) == 0:
+            raise LayerError(f"{what}: the GeoDataFrame has no features")
+        frame = layer.copy()
+        frame.attrs.setdefault("source", "GeoDataFrame")
+        return frame
+    return read_vector(layer, what=what)
 
 
-def demand_from_points(*args: Any, **kwargs: Any) -> Demand:  # pragma: no cover - replaced below
-    raise NotImplementedError
+def _id_list(frame: "gpd.GeoDataFrame", rows: np.ndarray, limit: int = 10) -> str:
+    labels = [str(v) for v in frame.index.to_numpy()[rows[:limit]]]
+    more = f" and {len(rows) - limit} more" if len(rows) > limit else ""
+    return ", ".join(labels) + more
+
+
+def _numeric_field(frame: "gpd.GeoDataFrame", field: str, what: str, param: str) -> np.ndarray:
+    """The values of a numeric field, checked: present, numeric, no missing, none negative or infinite."""
+    import pandas as pd
+
+    source = frame.attrs.get("source", what)
+    if not isinstance(field, str) or not field:
+        raise ParameterError(f"{param}: name the field that holds the people, got {field!r}", param)
+    if field not in frame.columns or field == frame.geometry.name:
+        fields = [c for c in frame.columns if c != frame.geometry.name]
+        numeric = [c for c in fields if pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c])]
+        raise LayerError(
+            f"{what}: {source} has no field {field!r}; its numeric fields are: {', '.join(map(str, numeric)) or 'none'}"
+            f" (all fields: {', '.join(map(str, fields)) or 'none'})"
+        )
+    column = frame[field]
+    if pd.api.types.is_bool_dtype(column) or not pd.api.types.is_numeric_dtype(column):
+        raise LayerError(
+            f"{what}: field {field!r} of {source} is not numeric (type {column.dtype}); store the people as "
+            "numbers (convert the field, e.g. CAST({field} AS REAL) in the GIS)"
+        )
+    values = column.to_numpy(dtype=np.float64, na_value=np.nan)
+    missing = np.flatnonzero(np.isnan(values))
+    if len(missing):
+        raise LayerError(
+            f"{what}: field {field!r} of {source} has no value for {len(missing)} feature(s) (ids {_id_list(frame, missing)}); "
+            "fill them in (0 if nobody lives there) or remove those features"
+        )
+    bad = np.flatnonzero(~np.isfinite(values) | (values < 0))
+    if len(bad):
+        raise LayerError(
+            f"{what}: field {field!r} of {source} is negative or infinite for {len(bad)} feature(s) "
+            f"(ids {_id_list(frame, bad)}; first value {values[bad[0]]}); people must be a count of zero or more"
+        )
+    return values
+
+
+def _frame_lonlat_centre(frame: "gpd.GeoDataFrame") -> tuple[float, float]:
+    xmin, ymin, xmax, ymax = frame.total_bounds
+    return _lonlat_centre(as_crs(frame.crs), (xmin + xmax) / 2.0, (ymin + ymax) / 2.0)
+
+
+def _to_working(frame: "gpd.GeoDataFrame", crs: Any, what: str) -> tuple["gpd.GeoDataFrame", Any, list[str]]:
+    from .layers import to_crs
+
+    src_crs = as_crs(frame.crs, what)
+    work = _working_crs(crs, src_crs, _frame_lonlat_centre(frame))
+    notes = []
+    if not work.equals(src_crs):
+        notes.append(f"reprojected from {crs_label(src_crs)} to {crs_label(work)}")
+        frame = to_crs(frame, work, what=what)
+    return frame, work, notes
+
+
+def demand_from_areas(
+    layer: Any,
+    population: str,
+    *,
+    placement: Placement | str = Placement.CENTROID,
+    weight_raster: str | Path | None = None,
+    spacing_m: float | str | None = None,
+    crs: Any = None,
+) -> Demand:
+    """Demand points from polygons with a population field (census areas, blocks, parishes).
+
+    Parameters
+    ----------
+    layer : path, ``"path:layer"``, LayerRef or GeoDataFrame
+        Polygon layer.
+    population : str
+        The field holding people per polygon (numeric, none missing or negative).
+    placement : {"centroid", "inside", "spread"}
+        ``centroid``: one point per polygon at its centroid (for a concave
+        polygon it may fall outside).  ``inside``: one point per polygon,
+        guaranteed inside (shapely.point_on_surface).  ``spread``: each
+        polygon's people split over the cells of ``weight_raster`` in
+        proportion to cell value times the cell's area inside the polygon, or
+        without a raster over a square lattice of ``spacing_m`` by area; the
+        shares of a polygon sum to its total and every point lies inside it.
+    weight_raster : path, optional
+        Land-use or building-density grid for ``spread``.  Nodata counts as
+        zero weight; a polygon with no weight inside falls back to the lattice
+        (when ``spacing_m`` is given) or to one inside point, and says so.
+    spacing_m : float or str, optional
+        Lattice spacing for ``spread`` without a raster (``"500 m"``, ``1000``).
+    crs : CRS-like, optional
+        Working CRS (projected, metres); default the layer's if projected in
+        metres, else a local projected CRS.
+
+    Returns
+    -------
+    Demand
+        ``unit`` is the feature's row in the layer.  ``footprint`` is the
+        largest distance from the point to its polygon (its farthest vertex),
+        or for spread points to its piece of the polygon (half the cell
+        diagonal for a cell wholly inside): an upper bound on how far anyone
+        the point stands for lives from it.  Invalid polygons are repaired with
+        shapely's make_valid and counted in ``summary["notes"]``.
+    """
+    import shapely
+
+    from .spread import farthest_vertex, polygonal
+    from .units import parse_distance
+
+    started = time.perf_counter()
+    placement = _choice(Placement, placement, "placement")
+    spacing = None if spacing_m is None else parse_distance(spacing_m, param="spacing_m")
+    if spacing is not None and not (math.isfinite(spacing) and spacing > 0):
+        raise ParameterError(f"spacing_m: the lattice spacing must be a positive distance, got {spacing_m!r}", "spacing_m")
+    if placement is Placement.SPREAD and weight_raster is None and spacing is None:
+        raise ParameterError(
+            "placement='spread' needs weight_raster (a land-use or building-density grid) or spacing_m "
+            "(a lattice spacing such as '500 m')",
+            "spacing_m",
+        )
+    if placement is not Placement.SPREAD and (weight_raster is not None or spacing is not None):
+        raise ParameterError(
+            f"weight_raster and spacing_m only apply to placement='spread', not {placement.value!r}", "placement"
+        )
+    what = "population areas"
+    frame = _read_layer(layer, what)
+    source = frame.attrs.get("source", str(layer))
+    people = _numeric_field(frame, population, what, "population")
+    geoms = np.asarray(frame.geometry.values, dtype=object)
+    notes: list[str] = []
+
+    missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    kinds = shapely.get_type_id(geoms)
+    if (~missing & np.isin(kinds, [0, 4])).all():
+        raise LayerError(f"{what}: {source} holds points, not polygons; use demand_from_points (tool demand-areas reads polygons)")
+    not_poly = ~missing & ~np.isin(kinds, [3, 6, 7])
+    if not_poly.any():
+        rows = np.flatnonzero(not_poly)
+        raise LayerError(f"{what}: {source} has {len(rows)} feature(s) that are not polygons (ids {_id_list(frame, rows)}); keep only polygons")
+    lost = np.flatnonzero(missing & (people > 0))
+    if len(lost):
+        raise LayerError(
+            f"{what}: {len(lost)} feature(s) of {source} have people but no geometry (ids {_id_list(frame, lost)}); "
+            "draw or remove them"
+        )
+    invalid = ~missing & ~shapely.is_valid(geoms)
+    if invalid.any():
+        import geopandas as gpd
+
+        geoms = geoms.copy()
+        geoms[invalid] = shapely.make_valid(geoms[invalid])
+        notes.append(f"repaired {int(invalid.sum())} invalid polygon(s) with make_valid")
+        frame[frame.geometry.name] = gpd.GeoSeries(geoms, index=frame.index, crs=frame.crs)
+
+    src_crs = as_crs(frame.crs, what)
+    frame, work, crs_notes = _to_working(frame, crs, what)
+    notes = crs_notes + notes
+    geoms = polygonal(np.asarray(frame.geometry.values, dtype=object))
+    populated = np.flatnonzero(people > 0)
+    people_in = float(people.sum())
+    mode: dict[str, Any] = {"placement": placement.value, "features": int(len(frame)), "features_empty": int(len(frame) - len(populated))}
+
+    degenerate = populated[shapely.is_empty(geoms[populated]) | (shapely.area(geoms[populated]) <= 0)]
+    if len(degenerate):
+        # a repaired polygon can collapse to nothing; keep its people at a point of what is left
+        raw = np.asarray(frame.geometry.values, dtype=object)
+        geoms = geoms.copy()
+        geoms[degenerate] = raw[degenerate]
+        notes.append(f"{len(degenerate)} polygon(s) have no area after repair (ids {_id_list(frame, degenerate)}); "
+                     "their people sit at one point of the remaining geometry")
+
+    if placement is Placement.SPREAD:
+        xy, weight, unit, footprint, details = _spread(frame, geoms, people, populated, degenerate, weight_raster, spacing, work, notes)
+        mode.update(details)
+    else:
+        g = geoms[populated]
+        pts = shapely.centroid(g) if placement is Placement.CENTROID else shapely.point_on_surface(g)
+        xy = shapely.get_coordinates(pts)
+        weight = people[populated]
+        unit = populated.astype(np.int64)
+        footprint = farthest_vertex(g, xy)
+        if placement is Placement.CENTROID:
+            outside = int((~shapely.contains_xy(g, xy[:, 0], xy[:, 1])).sum())
+            if outside:
+                notes.append(f"{outside} centroid(s) fall outside their polygon (concave shapes); placement='inside' avoids that")
+            mode["centroids_outside"] = outside
+
+    people_out = float(np.sum(weight))
+    summary: dict[str, Any] = {
+        "source": str(source),
+        "kind": "areas",
+        "population_field": population,
+        "source_crs": _crs_text(src_crs),
+        "crs": _crs_text(work),
+        "people_in": people_in,
+        "people_out": people_out,
+        "points": int(len(weight)),
+        "dropped": {},
+        "balance": people_in - people_out,
+        **mode,
+        "seconds": round(time.perf_counter() - started, 3),
+        "notes": notes,
+    }
+    _log_summary(f"{what} {source}", summary)
+    return Demand(xy, weight, unit=unit, footprint=footprint, crs=_crs_text(work), summary=summary)
+
+
+def _spread(
+    frame: "gpd.GeoDataFrame",
+    geoms: np.ndarray,
+    people: np.ndarray,
+    populated: np.ndarray,
+    degenerate: np.ndarray,
+    weight_raster: Any,
+    spacing: float | None,
+    work: Any,
+    notes: list[str],
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, dict[str, Any]]:
+    """Split each populated polygon over raster cells or lattice squares (see demand_from_areas)."""
+    import shapely
+
+    from .spread import MAX_CELLS_PER_POLYGON, farthest_vertex, lattice_cells, split_polygon
+
+    xy_parts: list[np.ndarray] = []
+    w_parts: list[np.ndarray] = []
+    u_parts: list[np.ndarray] = []
+    f_parts: list[np.ndarray] = []
+    single: list[int] = []
+    by_raster = by_lattice = 0
+    skip = set(degenerate.tolist())
+    cells_of = None
+    if weight_raster is not None:
+        cells_of = _RasterCells(weight_raster, work)
+    try:
+        for row in populated.tolist():
+            poly = geoms[row]
+            part = None
+            if row not in skip:
+                if cells_of is not None:
+                    cells, centres, density = cells_of.around(poly)
+                    part = split_polygon(poly, cells, centres, density) if len(cells) else None
+                    by_raster += part is not None
+                if part is None and spacing is not None:
+                    try:
+                        cells, centres = lattice_cells(shapely.bounds(poly), spacing)
+                    except ValueError as exc:
+                        raise ParameterError(
+                            f"spacing_m: feature {frame.index[row]} would need {exc.args[0]} lattice cells at "
+                            f"{spacing:g} m (limit {MAX_CELLS_PER_POLYGON}); choose a larger spacing",
+                            "spacing_m",
+                        ) from None
+                    part = split_polygon(poly, cells, centres, np.ones(len(cells)))
+                    by_lattice += part is not None
+            if part is None:
+                point = shapely.point_on_surface(poly)
+                pxy = shapely.get_coordinates(point).reshape(1, 2)
+                xy_parts.append(pxy)
+                w_parts.append(np.array([people[row]]))
+                f_parts.append(farthest_vertex(np.array([poly], dtype=object), pxy))
+                u_parts.append(np.array([row], dtype=np.int64))
+                single.append(row)
+                continue
+            share = part.share
+            w = people[row] * share
+            w[-1] = people[row] - w[:-1].sum()  # the polygon's total, to the last bit
+            if w[-1] < 0:  # cannot happen with shares summing to 1, but never emit negative people
+                w = people[row] * share
+            xy_parts.append(part.xy)
+            w_parts.append(w)
+            f_parts.append(part.footprint)
+            u_parts.append(np.full(len(w), row, dtype=np.int64))
+    finally:
+        if cells_of is not None:
+            cells_of.close()
+    if single:
+        why = "no area left after repair, or no weight in the weight raster inside"
+        notes.append(
+            f"{len(single)} polygon(s) got one inside point ({why}; ids {_id_list(frame, np.array(single))})"
+        )
+    cat = (lambda parts, dt, shape: np.concatenate(parts) if parts else np.zeros(shape, dtype=dt))
+    xy = cat(xy_parts, np.float64, (0, 2))
+    details = {
+        "spread_by": "weight_raster" if weight_raster is not None else "lattice",
+        "spacing_m": spacing,
+        "weight_raster": None if weight_raster is None else str(weight_raster),
+        "polygons_by_raster": by_raster,
+        "polygons_by_lattice": by_lattice,
+        "polygons_single_point": len(single),
+    }
+    return (
+        xy,
+        cat(w_parts, np.float64, (0,)),
+        cat(u_parts, np.int64, (0,)),
+        cat(f_parts, np.float64, (0,)),
+        details,
+    )
+
+
+class _RasterCells:
+    """The cells of a weight raster around a polygon, as quadrilaterals in the working CRS."""
+
+    def __init__(self, path: Any, work: Any) -> None:
+        from pyproj import Transformer
+
+        from .layers import open_raster
+
+        self.path = path
+        self.src = open_raster(path, what="weight raster")
+        self.crs = as_crs(self.src.crs.to_wkt(), "weight raster")
+        self.same = self.crs.equals(work)
+        self.to_src = None if self.same else Transformer.from_crs(work, self.crs, always_xy=True)
+        self.to_work = None if self.same else Transformer.from_crs(self.crs, work, always_xy=True)
+        self.nodata = self.src.nodata
+        self.warned = False
+
+    def close(self) -> None:
+        self.src.close()
+
+    def around(self, poly: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        import shapely
+        from rasterio.windows import Window, from_bounds
+
+        src = self.src
+        geom = poly if self.same else shapely.transform(shapely.segmentize(poly, max(_longest_side(poly) / 50.0, 1e-9)), self._to_src_xy)
+        xmin, ymin, xmax, ymax = shapely.bounds(geom)
+        win = from_bounds(xmin, ymin, xmax, ymax, transform=src.transform)
+        col0 = max(int(math.floor(win.col_off)), 0)
+        row0 = max(int(math.floor(win.row_off)), 0)
+        col1 = min(int(math.ceil(win.col_off + win.width)), src.width)
+        row1 = min(int(math.ceil(win.row_off + win.height)), src.height)
+        empty = (np.zeros(0, dtype=object), np.zeros((0, 2)), np.zeros(0))
+        if col1 <= col0 or row1 <= row0:
+            return empty
+        window = Window(col0, row0, col1 - col0, row1 - row0)
+        values = src.read(1, window=window, masked=True).astype(np.float64)
+        mask = np.ma.getmaskarray(values)
+        data = np.ma.filled(values, 0.0)
+        bad = ~mask & (~np.isfinite(data) | (data < 0))
+        if bad.any():
+            r, c = np.argwhere(bad)[0]
+            raise LayerError(
+                f"weight raster {self.path}: {int(bad.sum())} cell(s) near the polygons are negative or not finite "
+                f"(first at row {row0 + r}, column {col0 + c}); weights must be zero or more (set them to nodata)"
+            )
+        data[mask] = 0.0
+        rr, cc = np.nonzero(data > 0)
+        if len(rr) == 0:
+            return empty
+        rows = (rr + row0).astype(np.float64)
+        cols = (cc + col0).astype(np.float64)
+        t = src.transform
+        corners = [apply_affine(t, cols + dc, rows + dr) for dc, dr in ((0, 0), (1, 0), (1, 1), (0, 1))]
+        cx, cy = apply_affine(t, cols + 0.5, rows + 0.5)
+        if not self.same:
+            corners = [self.to_work.transform(x, y) for x, y in corners]  # type: ignore[union-attr]
+            cx, cy = self.to_work.transform(cx, cy)  # type: ignore[union-attr]
+        xs = np.stack([np.asarray(x) for x, _ in corners] + [np.asarray(corners[0][0])], axis=1)
+        ys = np.stack([np.asarray(y) for _, y in corners] + [np.asarray(corners[0][1])], axis=1)
+        quads = shapely.polygons(np.stack([xs, ys], axis=2))
+        quads = shapely.make_valid(quads) if not self.same else quads
+        density = data[rr, cc] / shapely.area(quads)
+        return quads, np.column_stack([cx, cy]), density
+
+    def _to_src_xy(self, coords: np.ndarray) -> np.ndarray:
+        x, y = self.to_src.transform(coords[:, 0], coords[:, 1])  # type: ignore[union-attr]
+        return np.column_stack([x, y])
+
+
+def _longest_side(poly: Any) -> float:
+    import shapely
+
+    xmin, ymin, xmax, ymax = shapely.bounds(poly)
+    return float(max(xmax - xmin, ymax - ymin))
+
+
+def demand_from_points(layer: Any, weight: str | None, *, crs: Any = None) -> Demand:
+    """Demand points straight from a point layer with a weight field (address points, buildings).
+
+    Parameters
+    ----------
+    layer : path, ``"path:layer"``, LayerRef or GeoDataFrame
+        Point (or multipoint) layer.
+    weight : str or None
+        Field with the people at each point (numeric, none missing or
+        negative); None gives every feature a weight of 1.  A multipoint's weight
+        is shared equally among its points.
+    crs : CRS-like, optional
+        Working CRS (projected, metres); default the layer's if projected in
+        metres, else a local projected CRS.
+
+    Returns
+    -------
+    Demand
+        ``unit`` is the feature's row, ``footprint`` 0 (true points).
+        Features of zero weight make no point and are counted in
+        ``summary["features_empty"]``.
+    """
+    import shapely
+
+    started = time.perf_counter()
+    what = "demand points"
+    frame = _read_layer(layer, what)
+    source = frame.attrs.get("source", str(layer))
+    src_crs = as_crs(frame.crs, what)
+    if weight is None:
+        people = np.ones(len(frame))
+    else:
+        people = _numeric_field(frame, weight, what, "weight")
+    geoms = np.asarray(frame.geometry.values, dtype=object)
+    missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    kinds = shapely.get_type_id(geoms)
+    not_point = ~missing & ~np.isin(kinds, [0, 4])
+    if not_point.any():
+        rows = np.flatnonzero(not_point)
+        hint = "; for polygons use demand_from_areas" if np.isin(kinds[rows], [3, 6]).any() else ""
+        raise LayerError(
+            f"{what}: {source} has {len(rows)} feature(s) that are not points (ids {_id_list(frame, rows)}){hint}"
+        )
+    lost = np.flatnonzero(missing & (people > 0))
+    if len(lost):
+        raise LayerError(f"{what}: {len(lost)} feature(s) of {source} have a weight but no geometry (ids {_id_list(frame, lost)})")
+    frame, work, notes = _to_working(frame, crs, what)
+    geoms = np.asarray(frame.geometry.values, dtype=object)
+    populated = np.flatnonzero((people > 0) & ~missing)
+    parts, index = shapely.get_parts(geoms[populated], return_index=True)
+    per_feature = np.bincount(index, minlength=len(populated))
+    xy = shapely.get_coordinates(parts)
+    w = people[populated][index] / per_feature[index]
+    if (per_feature > 1).any():
+        notes.append(f"{int((per_feature > 1).sum())} multipoint feature(s) shared their weight equally among their points")
+    people_in = float(people.sum())
+    summary: dict[str, Any] = {
+        "source": str(source),
+        "kind": "points",
+        "weight_field": weight,
+        "source_crs": _crs_text(src_crs),
+        "crs": _crs_text(work),
+        "people_in": people_in,
+        "people_out": float(w.sum()),
+        "points": int(len(w)),
+        "dropped": {},
+        "balance": people_in - float(w.sum()),
+        "features": int(len(frame)),
+        "features_empty": int(len(frame) - len(populated)),
+        "seconds": round(time.perf_counter() - started, 3),
+        "notes": notes,
+    }
+    _log_summary(f"{what} {source}", summary)
+    return Demand(xy, w, unit=populated[index].astype(np.int64), footprint=np.zeros(len(w)), crs=_crs_text(work), summary=summary)
