@@ -1,0 +1,63 @@
+"""Property tests (hypothesis): population is conserved whatever the grid, nodata, factor and window."""
+
+from __future__ import annotations
+
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import pytest
+from affine import Affine
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+
+from geocover.demand import demand_from_grid
+from geocover.grid import block_points
+
+from test_demand_fixtures import write_raster
+
+counts = arrays(
+    np.float64,
+    st.tuples(st.integers(1, 12), st.integers(1, 12)),
+    elements=st.one_of(st.just(0.0), st.floats(0.0, 1e6, allow_nan=False, allow_infinity=False)),
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(counts, st.integers(1, 6), st.integers(0, 5), st.integers(0, 5))
+def test_core_blocks_conserve_and_stay_in_their_block(data, k, row_off_blocks, col_off_blocks):
+    transform = Affine(30.0, 0.0, 1000.0, 0.0, -30.0, 9000.0)
+    pts = block_points(
+        data, transform, grid_width=data.shape[1] + col_off_blocks * k,
+        row_off=row_off_blocks * k, col_off=col_off_blocks * k, factor=k,
+    )
+    assert pts.weight.sum() == pytest.approx(data.sum(), rel=1e-12, abs=1e-9)
+    assert (pts.weight > 0).all()
+    # each weighted centroid lies inside its block
+    x0 = 1000.0 + 30.0 * pts.col0
+    y0 = 9000.0 - 30.0 * pts.row0
+    assert ((pts.x >= x0 - 1e-6) & (pts.x <= x0 + 30.0 * k + 1e-6)).all()
+    assert ((pts.y <= y0 + 1e-6) & (pts.y >= y0 - 30.0 * k - 1e-6)).all()
+    assert len(np.unique(pts.unit)) == len(pts)
+
+
+grids = arrays(
+    np.float32,
+    st.tuples(st.integers(1, 15), st.integers(1, 15)),
+    elements=st.one_of(st.just(-9.0), st.just(0.0), st.floats(0.0, 5000.0, width=32)),
+)
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(grids, st.integers(1, 5), st.one_of(st.none(), st.integers(1, 7)))
+def test_grid_reader_conserves_total_with_nodata(data, k, rows):
+    with tempfile.TemporaryDirectory() as tmp:
+        path = write_raster(Path(tmp) / "pop.tif", data, nodata=-9.0)
+        d = demand_from_grid(path, coarsen=k, window_rows=rows)
+    expected = float(np.where(data == -9.0, 0.0, data).astype(np.float64).sum())
+    assert d.total == pytest.approx(expected, rel=1e-9, abs=1e-6)
+    s = d.summary
+    assert s["people_in"] == pytest.approx(expected, rel=1e-9, abs=1e-6)
+    assert s["people_out"] + sum(v["people"] for v in s["dropped"].values()) == pytest.approx(s["people_in"], rel=1e-12, abs=1e-9)
+    assert s.get("dropped", {}).get("nodata", {"cells": 0})["cells"] == int((data == -9.0).sum())
