@@ -391,6 +391,11 @@ def _screen_zones(footprints: np.ndarray, rows: np.ndarray, geoms: np.ndarray, i
     return _Hits(hit, feature, nearest)
 
 
+def _affine(t: Any, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Apply an affine transform to coordinate arrays."""
+    return t.a * x + t.b * y + t.c, t.d * x + t.e * y + t.f
+
+
 def _cell_polygons(transform: Any, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
     """Cell outlines (any affine transform) for cells at ``rows``, ``cols``."""
     a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
@@ -422,7 +427,7 @@ def _land_use(
         bounds = shapely.bounds(shapes)
         cx = np.concatenate([bounds[:, [0]], bounds[:, [2]], bounds[:, [0]], bounds[:, [2]]], axis=1)
         cy = np.concatenate([bounds[:, [1]], bounds[:, [1]], bounds[:, [3]], bounds[:, [3]]], axis=1)
-        colf, rowf = inv * (cx, cy)
+        colf, rowf = _affine(inv, cx, cy)
         c0 = np.floor(colf.min(axis=1)).astype(np.int64)
         c1 = np.floor(colf.max(axis=1)).astype(np.int64)
         r0 = np.floor(rowf.min(axis=1)).astype(np.int64)
@@ -456,7 +461,7 @@ def _land_use(
     # points: the cell under the point (the cell below/right of it when on a cell edge)
     if point.any():
         xy = shapely.get_coordinates(shapely.point_on_surface(shapes[point]))
-        pc, pr = inv * (xy[:, 0], xy[:, 1])
+        pc, pr = _affine(inv, xy[:, 0], xy[:, 1])
         values, ok = cell_values(np.floor(pr).astype(np.int64), np.floor(pc).astype(np.int64))
         share[rows[point]] = ok.astype(np.float64)
         worst[rows[point]] = np.where(ok, -1, values)
