@@ -237,9 +237,14 @@ class ScreeningRecord:
     site_index: np.ndarray
     label: np.ndarray | None = None
     crs: str | None = None
+    land_use_share: np.ndarray | None = None  #: share of the footprint on allowed land use (nan: no mask)
+    notes: tuple[str, ...] = ()  #: what screening repaired, reprojected or flagged, for reports
 
     def __post_init__(self) -> None:
-        xy = _as_xy(self.xy, "screening record")
+        # rows with verdict "invalid" have no usable location and may hold NaN coordinates
+        xy = np.ascontiguousarray(np.asarray(self.xy, dtype=np.float64))
+        if xy.ndim != 2 or xy.shape[1] != 2:
+            raise InputError(f"screening record: coordinates must have shape (n, 2), got {xy.shape}")
         n = len(xy)
         object.__setattr__(self, "xy", _freeze(xy))
         for name, dtype, default in (
@@ -250,8 +255,13 @@ class ScreeningRecord:
             ("nearest_exclusion_m", np.float64, np.inf),
             ("site_index", np.int64, -1),
             ("label", object, ""),
+            ("land_use_share", np.float64, np.nan),
         ):
             object.__setattr__(self, name, _freeze(_as_vector(getattr(self, name), n, dtype, f"record {name}", default)))
+        located = self.verdict.astype(str) != Verdict.INVALID.value
+        if n and not np.isfinite(xy[located]).all():
+            raise InputError("screening record: only rows with verdict 'invalid' may lack finite coordinates")
+        object.__setattr__(self, "notes", tuple(self.notes))
 
     def __len__(self) -> int:
         return len(self.xy)

@@ -1,0 +1,988 @@
+"""Candidate sites: from a layer or a lattice, screened by exclusion zones and land use.
+
+:func:`screen_sites` turns candidate points or parcel polygons, existing
+facilities and constraint layers into the :class:`~geocover.values.Sites`
+a model may use, and a :class:`~geocover.values.ScreeningRecord` that says,
+for every candidate and existing facility, whether it was kept and, if not,
+which rule, layer and feature rejected it.
+
+Rules, in the order they are applied (a candidate gets the verdict of the
+first rule it fails):
+
+1. ``invalid`` -- no geometry, an empty one, or one that is neither a point
+   nor a polygon.  Invalid polygons (self-intersections...) are repaired
+   with :func:`shapely.make_valid` and counted, not rejected.
+2. ``outside`` -- the site point is not covered by the study area (a point
+   on the area's boundary is inside).
+3. ``excluded`` -- for each :class:`Exclusion` layer in the order given: the
+   site's footprint (the point, or the whole parcel) is *closer than* the
+   setback to a zone feature.  A site exactly at the setback distance is
+   kept: kept sites satisfy ``shapely.distance(footprint, zone) >= setback``.
+   With a setback of 0 a footprint that touches a zone (shares a boundary
+   point) is excluded.
+4. ``land_use`` -- a point on a cell whose class is not allowed (nodata and
+   cells off the raster are never allowed), or a parcel with less than
+   ``min_share`` of its area on allowed cells.
+
+Existing facilities are never screened out, whether kept or optional: they
+exist, and closing one is the model's decision (for optional ones), not the
+screen's.  When one sits in an exclusion zone, outside the study area or on
+disallowed land use, screening logs a warning and says so in its record row
+and in ``record.notes``.
+
+Minimum spacing is not a screen: the pairs of sites closer than the spacing
+go to ``Sites.close_pairs`` and the models forbid opening both.
+"""
+
+from __future__ import annotations
+
+import enum
+import logging
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any, Sequence
+
+import numpy as np
+import shapely
+
+from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, require_projected
+from .errors import CRSError, InputError, LayerError, ParameterError
+from .filters import parse_filter
+from .layers import LayerRef, open_raster, parse_layer_ref, read_vector, to_crs
+from .units import parse_distance, parse_fraction
+from .values import ScreeningRecord, SiteRole, Sites, Verdict
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+    from pyproj import CRS
+
+__all__ = [
+    "Exclusion",
+    "LandUseMask",
+    "LatticeShape",
+    "screen_sites",
+    "lattice_candidates",
+    "close_pairs",
+    "screening_summary",
+    "screened_sites_frame",
+]
+
+logger = logging.getLogger(__name__)
+
+_POINT_TYPES = (0, 4)  # Point, MultiPoint
+_POLYGON_TYPES = (3, 6)  # Polygon, MultiPolygon
+
+
+# --------------------------------------------------------------------------- parameters
+
+
+def _layer_name(layer: Any) -> str:
+    if isinstance(layer, (str, LayerRef)) or hasattr(layer, "__fspath__"):
+        ref = parse_layer_ref(layer if not hasattr(layer, "__fspath__") else str(layer))
+        return ref.layer or ref.path.stem
+    attrs = getattr(layer, "attrs", {})
+    source = attrs.get("name") or attrs.get("source")
+    if source:
+        ref = parse_layer_ref(str(source))
+        return ref.layer or ref.path.stem
+    return "exclusion"
+
+
+@dataclass(frozen=True)
+class Exclusion:
+    """An exclusion-zone layer: sites closer than ``setback_m`` to its features are rejected.
+
+    Parameters
+    ----------
+    layer : path, "path:layer", LayerRef or GeoDataFrame
+        Polygons (or any geometries) of the zones.
+    setback_m : float or str
+        Minimum distance in metres a kept site keeps from every feature
+        (``"50 m"`` and ``"0.1 km"`` are read too).  0 means "not inside and
+        not touching".
+    where : str, optional
+        Attribute filter choosing which features are zones, e.g.
+        ``zone_class in ("A", "AE") and depth_m >= 0.5`` (see
+        :mod:`geocover.filters`).
+    name : str, optional
+        Name used in verdicts; defaults to the layer's name.
+
+    >>> Exclusion("flood.gpkg:flood_zones", setback_m="50 m").rule
+    'within 50 m of flood_zones'
+    """
+
+    layer: Any
+    setback_m: float = 0.0
+    where: str | None = None
+    name: str | None = None
+
+    def __post_init__(self) -> None:
+        setback = parse_distance(self.setback_m, param="setback_m")
+        if not (math.isfinite(setback) and setback >= 0):
+            raise ParameterError(f"setback_m: must be a distance of 0 m or more, got {self.setback_m!r}", "setback_m")
+        object.__setattr__(self, "setback_m", float(setback))
+        if self.where is not None:
+            parse_filter(self.where, "where")  # fail before any layer is read
+        if self.name is None:
+            object.__setattr__(self, "name", _layer_name(self.layer))
+
+    @property
+    def rule(self) -> str:
+        """The verdict text, e.g. ``within 50 m of flood_zones where zone_class in ('A', 'AE')``."""
+        text = f"within {self.setback_m:g} m of {self.name}" if self.setback_m > 0 else f"inside {self.name}"
+        return f"{text} where {self.where}" if self.where else text
+
+
+@dataclass(frozen=True)
+class LandUseMask:
+    """A categorical land-use raster and the classes a site may stand on.
+
+    Give exactly one of ``allowed`` or ``forbidden``.  A point site is judged
+    by its cell; a parcel by the share of its area on allowed cells, which
+    must be at least ``min_share``.  Nodata cells and cells off the raster
+    are never allowed.
+
+    >>> LandUseMask("land_use.tif", forbidden=(6, 7)).describe()
+    'land use not in classes (6, 7)'
+    """
+
+    raster: Any
+    allowed: tuple[int, ...] | None = None
+    forbidden: tuple[int, ...] | None = None
+    min_share: float = 0.5
+
+    def __post_init__(self) -> None:
+        if (self.allowed is None) == (self.forbidden is None):
+            raise ParameterError(
+                "land_use: give either the allowed classes or the forbidden classes (exactly one of them), "
+                "e.g. LandUseMask('land_use.tif', allowed=(1, 2, 3))",
+                "land_use",
+            )
+        for name in ("allowed", "forbidden"):
+            value = getattr(self, name)
+            if value is None:
+                continue
+            if isinstance(value, (int, np.integer)):
+                value = (value,)
+            try:
+                codes = tuple(int(v) for v in value)
+                if any(int(v) != float(v) for v in value):
+                    raise ValueError
+            except (TypeError, ValueError):
+                raise ParameterError(f"land_use {name}: expected whole class codes such as (1, 2, 3), got {value!r}", name) from None
+            if not codes:
+                raise ParameterError(f"land_use {name}: the list of classes is empty", name)
+            object.__setattr__(self, name, codes)
+        share = parse_fraction(self.min_share, "min_share")
+        if share <= 0:
+            raise ParameterError("min_share: must be more than 0 % (0 % would keep every parcel)", "min_share")
+        object.__setattr__(self, "min_share", share)
+
+    @property
+    def name(self) -> str:
+        return _layer_name(str(self.raster))
+
+    def describe(self) -> str:
+        codes = self.allowed if self.allowed is not None else self.forbidden
+        text = ", ".join(str(c) for c in codes)  # type: ignore[union-attr]
+        return f"land use in classes ({text})" if self.allowed is not None else f"land use not in classes ({text})"
+
+    def allows(self, values: np.ndarray) -> np.ndarray:
+        """Boolean per class code: may a site stand on it (nodata is handled by the caller)."""
+        if self.allowed is not None:
+            return np.isin(values, self.allowed)
+        return ~np.isin(values, self.forbidden)
+
+
+class LatticeShape(str, enum.Enum):
+    """Arrangement of generated candidate points."""
+
+    SQUARE = "square"  #: rows and columns ``spacing`` apart
+    HEX = "hex"  #: rows ``spacing * sqrt(3) / 2`` apart, every other row shifted by half a spacing
+
+
+# --------------------------------------------------------------------------- reading
+
+
+def _read(value: Any, what: str, allow_empty: bool = False) -> tuple["gpd.GeoDataFrame", str]:
+    """A layer as a GeoDataFrame and its short name."""
+    import geopandas as gpd
+
+    if isinstance(value, gpd.GeoDataFrame):
+        if value.crs is None:
+            raise CRSError(f"{what}: the GeoDataFrame has no CRS; set one with frame.set_crs('EPSG:...')")
+        if len(value) == 0 and not allow_empty:
+            raise LayerError(f"{what}: the GeoDataFrame has no features")
+        return value, _layer_name(value) if ("name" in value.attrs or "source" in value.attrs) else what
+    if isinstance(value, gpd.GeoSeries):
+        return _read(gpd.GeoDataFrame(geometry=value), what, allow_empty)
+    ref = parse_layer_ref(str(value) if hasattr(value, "__fspath__") else value)
+    frame = read_vector(ref, what, allow_empty=allow_empty)
+    return frame, ref.layer or ref.path.stem
+
+
+def _feature_ids(frame: "gpd.GeoDataFrame") -> np.ndarray:
+    """The frame's integer index (the row as read, or the caller's ids), else row positions."""
+    index = frame.index
+    if np.issubdtype(index.dtype, np.integer):
+        return np.asarray(index, dtype=np.int64)
+    return np.arange(len(frame), dtype=np.int64)
+
+
+def _lonlat_centre(frame: "gpd.GeoDataFrame") -> tuple[float, float] | None:
+    from pyproj import Transformer
+
+    bounds = frame.total_bounds
+    if not np.isfinite(bounds).all():
+        return None
+    x, y = (bounds[0] + bounds[2]) / 2, (bounds[1] + bounds[3]) / 2
+    lon, lat = Transformer.from_crs(frame.crs, "EPSG:4326", always_xy=True).transform(x, y)
+    return float(lon), float(lat)
+
+
+def _working_crs(requested: Any, frame: "gpd.GeoDataFrame") -> "CRS":
+    if requested is not None:
+        return require_projected(requested, "working CRS (crs)")
+    crs = as_crs(frame.crs)
+    if not crs.is_geographic:
+        try:
+            return require_projected(crs, f"CRS {crs_label(crs)} of the candidates")
+        except CRSError:
+            pass  # projected but not in metres: fall through to a local metre CRS
+    centre = _lonlat_centre(frame)
+    if centre is None:
+        raise LayerError("candidates: no feature has a usable geometry, so no working CRS can be chosen")
+    if crs.is_geographic:
+        return choose_working_crs(None, [crs], centre)
+    working = local_projected_crs(*centre)
+    logger.info("candidates' CRS %s is not in metres; working in %s", crs_label(crs), crs_label(working))
+    return working
+
+
+def _reproject(frame: "gpd.GeoDataFrame", crs: "CRS", what: str, notes: list[str]) -> "gpd.GeoDataFrame":
+    if not as_crs(frame.crs).equals(crs):
+        notes.append(f"{what}: reprojected from {crs_label(frame.crs)} to {crs_label(crs)}")
+    return to_crs(frame, crs, what)
+
+
+def _repair(geoms: np.ndarray, what: str, notes: list[str]) -> np.ndarray:
+    """Repair invalid geometries in place of the originals (a copy), count and say so."""
+    present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    invalid = np.zeros(len(geoms), dtype=bool)
+    invalid[present] = ~shapely.is_valid(geoms[present])
+    count = int(invalid.sum())
+    if not count:
+        return geoms
+    geoms = geoms.copy()
+    fixed = shapely.make_valid(geoms[invalid])
+    # keep the polygonal part of a polygon repaired into a collection of polygons and lines
+    original_polygonal = np.isin(shapely.get_type_id(geoms[invalid]), _POLYGON_TYPES)
+    for k in np.flatnonzero(original_polygonal & (shapely.get_type_id(fixed) == 7)):
+        parts = shapely.get_parts(fixed[k])
+        polys = parts[np.isin(shapely.get_type_id(parts), _POLYGON_TYPES)]
+        fixed[k] = shapely.union_all(polys) if len(polys) else shapely.Polygon()
+    geoms[invalid] = fixed
+    message = f"{what}: repaired {count} invalid geometr{'y' if count == 1 else 'ies'} with make_valid"
+    logger.warning(message)
+    notes.append(message)
+    return geoms
+
+
+@dataclass
+class _Located:
+    """Representative points and footprints of a site layer, in the working CRS."""
+
+    xy: np.ndarray  # (n, 2), NaN where invalid
+    footprint: np.ndarray  # shapely geometries (None where invalid)
+    is_point: np.ndarray  # bool
+    invalid: np.ndarray  # reason text, "" when usable
+
+
+def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
+    geoms = np.asarray(frame.geometry.array, dtype=object)
+    geoms = _repair(geoms, what, notes)
+    n = len(geoms)
+    types = shapely.get_type_id(geoms)
+    missing = shapely.is_missing(geoms)
+    empty = np.zeros(n, dtype=bool)
+    empty[~missing] = shapely.is_empty(geoms[~missing])
+    is_point = np.isin(types, _POINT_TYPES)
+    is_poly = np.isin(types, _POLYGON_TYPES)
+    reason = np.full(n, "", dtype=object)
+    reason[~(is_point | is_poly)] = "geometry is not a point or a polygon"
+    reason[empty] = "empty geometry"
+    reason[missing] = "no geometry"
+    usable = reason == ""
+    area_zero = np.zeros(n, dtype=bool)
+    area_zero[usable & is_poly] = shapely.area(geoms[usable & is_poly]) <= 0
+    reason[area_zero] = "polygon with no area"
+    usable = reason == ""
+    xy = np.full((n, 2), np.nan)
+    simple = usable & (types == 0)
+    xy[simple] = shapely.get_coordinates(geoms[simple])
+    other = usable & ~simple
+    xy[other] = shapely.get_coordinates(shapely.point_on_surface(geoms[other]))
+    footprint = np.where(usable, geoms, None)
+    return _Located(xy, footprint, is_point & usable, reason)
+
+
+# --------------------------------------------------------------------------- rules
+
+
+@dataclass
+class _Hits:
+    """Per-site result of one exclusion layer."""
+
+    hit: np.ndarray  # bool
+    feature: np.ndarray  # int64 feature id of the nearest rejecting feature, -1
+    nearest: np.ndarray  # float distance to the nearest feature of the layer
+
+
+def _exclusion_layer(rule: Exclusion, crs: "CRS", notes: list[str]) -> tuple[np.ndarray, np.ndarray]:
+    """The zone geometries (after the filter, repaired) and their feature ids."""
+    frame, _ = _read(rule.layer, f"exclusion layer {rule.name}", allow_empty=True)
+    ids = _feature_ids(frame)
+    if rule.where:
+        keep = parse_filter(rule.where, "where").mask(frame, str(rule.name))
+        notes.append(f"{rule.name}: the filter {rule.where!r} selects {int(keep.sum())} of {len(frame)} features")
+        frame, ids = frame[keep], ids[keep]
+    frame = _reproject(frame, crs, f"exclusion layer {rule.name}", notes)
+    geoms = _repair(np.asarray(frame.geometry.array, dtype=object), f"exclusion layer {rule.name}", notes)
+    present = ~shapely.is_missing(geoms)
+    present[present] = ~shapely.is_empty(geoms[present])
+    if not present.all():
+        notes.append(f"exclusion layer {rule.name}: ignored {int((~present).sum())} feature(s) without geometry")
+    if not present.any():
+        logger.warning("exclusion layer %s has no zone features%s", rule.name, " after its filter" if rule.where else "")
+    return geoms[present], ids[present]
+
+
+def _screen_zones(footprints: np.ndarray, rows: np.ndarray, geoms: np.ndarray, ids: np.ndarray, setback: float) -> _Hits:
+    """Which footprints (at ``rows``) are closer than ``setback`` to a zone, and their nearest distance."""
+    n = len(footprints)
+    hit = np.zeros(n, dtype=bool)
+    feature = np.full(n, -1, dtype=np.int64)
+    nearest = np.full(n, np.inf)
+    if not len(geoms) or not len(rows):
+        return _Hits(hit, feature, nearest)
+    tree = shapely.STRtree(geoms)
+    query = footprints[rows]
+    if setback > 0:
+        # dwithin is inclusive and float-rounded; widen it a hair, then decide on the exact distance
+        pairs = tree.query(query, predicate="dwithin", distance=setback * (1 + 1e-9) + 1e-9)
+        dist = shapely.distance(query[pairs[0]], geoms[pairs[1]])
+        close = dist < setback
+        pairs, dist = pairs[:, close], dist[close]
+    else:
+        pairs = tree.query(query, predicate="intersects")
+        dist = np.zeros(pairs.shape[1])
+    if pairs.shape[1]:
+        # the nearest rejecting feature per site, ties to the lowest feature id
+        order = np.lexsort((ids[pairs[1]], dist, pairs[0]))
+        first = order[np.unique(pairs[0][order], return_index=True)[1]]
+        site = rows[pairs[0][first]]
+        hit[site] = True
+        feature[site] = ids[pairs[1][first]]
+        nearest[site] = dist[first]
+    rest = rows[~hit[rows]]
+    if len(rest):
+        _, near = tree.query_nearest(footprints[rest], return_distance=True, all_matches=False)
+        nearest[rest] = near
+    return _Hits(hit, feature, nearest)
+
+
+def _affine(t: Any, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Apply an affine transform to coordinate arrays."""
+    return t.a * x + t.b * y + t.c, t.d * x + t.e * y + t.f
+
+
+def _cell_polygons(transform: Any, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+    """Cell outlines (any affine transform) for cells at ``rows``, ``cols``."""
+    a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
+    corners_c = np.stack([cols, cols + 1, cols + 1, cols, cols], axis=1).astype(np.float64)
+    corners_r = np.stack([rows, rows, rows + 1, rows + 1, rows], axis=1).astype(np.float64)
+    x = a * corners_c + b * corners_r + c
+    y = d * corners_c + e * corners_r + f
+    return shapely.polygons(np.stack([x, y], axis=2))
+
+
+def _land_use(
+    mask: LandUseMask, located: _Located, rows: np.ndarray, crs: "CRS", notes: list[str]
+) -> tuple[np.ndarray, np.ndarray]:
+    """Share of each footprint (at ``rows``) on allowed classes, and the main disallowed class (-1)."""
+    import geopandas as gpd
+    from rasterio.windows import Window
+
+    n = len(located.xy)
+    share = np.full(n, np.nan)
+    worst = np.full(n, -1, dtype=np.int64)
+    if not len(rows):
+        return share, worst
+    with open_raster(mask.raster, "land-use raster") as src:
+        shapes = located.footprint[rows]
+        if not as_crs(src.crs).equals(crs):
+            notes.append(f"land-use raster: sites reprojected to its CRS {crs_label(src.crs)} to read cells")
+            shapes = np.asarray(gpd.GeoSeries(shapes, crs=crs).to_crs(src.crs).array, dtype=object)
+        inv = ~src.transform
+        bounds = shapely.bounds(shapes)
+        cx = np.concatenate([bounds[:, [0]], bounds[:, [2]], bounds[:, [0]], bounds[:, [2]]], axis=1)
+        cy = np.concatenate([bounds[:, [1]], bounds[:, [1]], bounds[:, [3]], bounds[:, [3]]], axis=1)
+        colf, rowf = _affine(inv, cx, cy)
+        c0 = np.floor(colf.min(axis=1)).astype(np.int64)
+        c1 = np.floor(colf.max(axis=1)).astype(np.int64)
+        r0 = np.floor(rowf.min(axis=1)).astype(np.int64)
+        r1 = np.floor(rowf.max(axis=1)).astype(np.int64)
+        # one read of the window under all sites, clipped to the raster
+        wr0, wc0 = max(int(r0.min()), 0), max(int(c0.min()), 0)
+        wr1, wc1 = min(int(r1.max()), src.height - 1), min(int(c1.max()), src.width - 1)
+        if wr1 < wr0 or wc1 < wc0:
+            data = np.zeros((0, 0), dtype=np.int64)
+        else:
+            data = src.read(1, window=Window(wc0, wr0, wc1 - wc0 + 1, wr1 - wr0 + 1))
+        nodata = src.nodata
+        transform = src.transform
+
+    def cell_values(r: np.ndarray, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Class codes and "allowed" flags; off-raster and nodata cells are not allowed."""
+        on = (r >= wr0) & (r <= wr1) & (c >= wc0) & (c <= wc1)
+        values = np.full(len(r), -1, dtype=np.int64)
+        ok = np.zeros(len(r), dtype=bool)
+        if on.any():
+            raw = data[r[on] - wr0, c[on] - wc0]
+            valid = np.ones(len(raw), dtype=bool) if nodata is None else ~(raw == nodata)
+            if np.issubdtype(raw.dtype, np.floating):
+                valid &= np.isfinite(raw)
+            codes = np.where(valid, raw, -1).astype(np.int64)
+            values[on] = codes
+            ok[on] = valid & mask.allows(codes)
+        return values, ok
+
+    point = located.is_point[rows]
+    # points: the cell under the point (the cell below/right of it when on a cell edge)
+    if point.any():
+        xy = shapely.get_coordinates(shapely.point_on_surface(shapes[point]))
+        pc, pr = _affine(inv, xy[:, 0], xy[:, 1])
+        values, ok = cell_values(np.floor(pr).astype(np.int64), np.floor(pc).astype(np.int64))
+        share[rows[point]] = ok.astype(np.float64)
+        worst[rows[point]] = np.where(ok, -1, values)
+    # parcels: exact area of the parcel on each cell under its bounding box
+    poly = np.flatnonzero(~point)
+    if len(poly):
+        counts = (r1[poly] - r0[poly] + 1) * (c1[poly] - c0[poly] + 1)
+        owner = np.repeat(poly, counts)
+        start = np.repeat(np.cumsum(counts) - counts, counts)
+        k = np.arange(len(owner)) - start
+        width = np.repeat(c1[poly] - c0[poly] + 1, counts)
+        cell_r = np.repeat(r0[poly], counts) + k // width
+        cell_c = np.repeat(c0[poly], counts) + k % width
+        area = np.zeros(len(owner))
+        chunk = 200_000
+        for s in range(0, len(owner), chunk):
+            sl = slice(s, s + chunk)
+            cells = _cell_polygons(transform, cell_r[sl], cell_c[sl])
+            area[sl] = shapely.area(shapely.intersection(shapes[owner[sl]], cells))
+        values, ok = cell_values(cell_r, cell_c)
+        good = np.bincount(owner, weights=np.where(ok, area, 0.0), minlength=len(rows))
+        # share of the whole footprint: area off the raster counts as not allowed
+        share[rows[poly]] = np.clip(good[poly] / shapely.area(shapes[poly]), 0.0, 1.0)
+        # the disallowed class covering the most area, for the record
+        bad = ~ok & (area > 0)
+        if bad.any():
+            key_owner, key_value = owner[bad], values[bad]
+            pairs, inverse = np.unique(np.stack([key_owner, key_value], axis=1), axis=0, return_inverse=True)
+            sums = np.bincount(inverse.ravel(), weights=area[bad])
+            order = np.lexsort((-sums, pairs[:, 0]))
+            firsts = order[np.unique(pairs[order, 0], return_index=True)[1]]
+            worst[rows[pairs[firsts, 0]]] = pairs[firsts, 1]
+    return share, worst
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def close_pairs(xy: Any, min_spacing_m: float) -> np.ndarray:
+    """Pairs of sites closer than ``min_spacing_m`` (strictly), as a ``(k, 2)`` int64 array.
+
+    Each pair ``(i, j)`` has ``i < j``; rows are sorted.  Sites exactly
+    ``min_spacing_m`` apart are not a pair.
+
+    >>> close_pairs([[0, 0], [3, 4], [100, 0]], 6).tolist()
+    [[0, 1]]
+    >>> close_pairs([[0, 0], [3, 4]], 5).tolist()
+    []
+    """
+    from scipy.spatial import cKDTree
+
+    pts = np.asarray(xy, dtype=np.float64).reshape(-1, 2)
+    spacing = parse_distance(min_spacing_m, param="min_spacing_m")
+    if not (math.isfinite(spacing) and spacing >= 0):
+        raise ParameterError(f"min_spacing_m: must be a distance of 0 m or more, got {min_spacing_m!r}", "min_spacing_m")
+    if len(pts) < 2 or spacing == 0:
+        return np.zeros((0, 2), dtype=np.int64)
+    pairs = cKDTree(pts).query_pairs(spacing, output_type="ndarray").astype(np.int64)
+    if len(pairs):
+        gap = np.hypot(*(pts[pairs[:, 0]] - pts[pairs[:, 1]]).T)
+        pairs = np.sort(pairs[gap < spacing], axis=1)
+        pairs = pairs[np.lexsort((pairs[:, 1], pairs[:, 0]))]
+    return np.ascontiguousarray(pairs.reshape(-1, 2))
+
+
+def _field(frame: "gpd.GeoDataFrame", name: str, what: str, param: str) -> Any:
+    if name not in frame.columns:
+        fields = [str(c) for c in frame.columns if c != frame.geometry.name]
+        raise ParameterError(f"{param}: {what} has no field {name!r}; its fields are: {', '.join(fields) or 'none'}", param)
+    return frame[name]
+
+
+def _costs(frame: "gpd.GeoDataFrame", field: str | None, default: float, what: str, notes: list[str], required: bool) -> np.ndarray:
+    import pandas as pd
+
+    n = len(frame)
+    if field is None or (not required and field not in frame.columns):
+        return np.full(n, float(default))
+    column = _field(frame, field, what, "cost_field")
+    values = pd.to_numeric(column, errors="coerce").to_numpy(dtype=np.float64)
+    text_bad = column.notna().to_numpy() & np.isnan(values)
+    if text_bad.any():
+        row = int(np.flatnonzero(text_bad)[0])
+        raise InputError(f"cost_field: {what} field {field!r} holds {column.iloc[row]!r} at row {row}, not a number")
+    missing = np.isnan(values)
+    if missing.any():
+        notes.append(f"{what}: {int(missing.sum())} empty value(s) in {field!r} take the default cost {default:g}")
+        values[missing] = default
+    if (values < 0).any() or not np.isfinite(values).all():
+        row = int(np.flatnonzero((values < 0) | ~np.isfinite(values))[0])
+        raise InputError(f"cost_field: {what} field {field!r} has cost {values[row]} at row {row}; costs must be 0 or more")
+    return values
+
+
+def _labels(frame: "gpd.GeoDataFrame", field: str | None, prefix: str, ids: np.ndarray, what: str, required: bool) -> np.ndarray:
+    default = np.array([f"{prefix}_{i}" for i in ids], dtype=object)
+    if field is None or (not required and field not in frame.columns):
+        return default
+    column = _field(frame, field, what, "label_field")
+    values = np.array([str(v) if v is not None and v == v else "" for v in column], dtype=object)
+    return np.where(values == "", default, values)
+
+
+_ROLE_WORDS = {
+    "kept": SiteRole.KEPT,
+    "keep": SiteRole.KEPT,
+    "existing_kept": SiteRole.KEPT,
+    "optional": SiteRole.OPTIONAL,
+    "existing_optional": SiteRole.OPTIONAL,
+}
+
+
+def _role(value: Any, param: str) -> SiteRole:
+    if isinstance(value, SiteRole) and value in (SiteRole.KEPT, SiteRole.OPTIONAL):
+        return value
+    role = _ROLE_WORDS.get(str(value).strip().lower())
+    if role is None:
+        raise ParameterError(f"{param}: {value!r} is not a role of an existing site; use 'kept' or 'optional'", param)
+    return role
+
+
+def _roles(frame: "gpd.GeoDataFrame", field: str | None, default: SiteRole, notes: list[str]) -> np.ndarray:
+    n = len(frame)
+    if field is None:
+        return np.full(n, int(default), dtype=np.int8)
+    column = _field(frame, field, "existing sites layer", "existing_role_field")
+    out = np.full(n, int(default), dtype=np.int8)
+    empty = 0
+    for i, value in enumerate(column):
+        if value is None or (isinstance(value, float) and math.isnan(value)) or str(value).strip() == "":
+            empty += 1
+            continue
+        role = _ROLE_WORDS.get(str(value).strip().lower())
+        if role is None:
+            raise InputError(
+                f"existing_role_field: existing sites field {field!r} holds {value!r} at row {i}; "
+                "use 'kept' or 'optional' (or leave it empty for the default role)"
+            )
+        out[i] = int(role)
+    if empty:
+        notes.append(f"existing sites: {empty} empty role value(s) in {field!r} take the default role {default.label}")
+    return out
+
+
+# --------------------------------------------------------------------------- screening
+
+
+def screen_sites(
+    candidates: Any,
+    *,
+    exclude: Sequence[Exclusion] | Exclusion = (),
+    land_use: LandUseMask | None = None,
+    existing: Any = None,
+    existing_role_field: str | None = None,
+    existing_role: str | SiteRole = "kept",
+    cost_field: str | None = None,
+    default_cost: float = 1.0,
+    study_area: Any = None,
+    min_spacing_m: float | None = None,
+    label_field: str | None = None,
+    crs: Any = None,
+) -> tuple[Sites, ScreeningRecord]:
+    """Screen candidate sites and return the usable ones with a verdict for every one.
+
+    Parameters
+    ----------
+    candidates : path, "path:layer", LayerRef or GeoDataFrame
+        Candidate points, or parcel polygons (a parcel stands at a point
+        inside it, and its whole footprint is screened).
+    exclude : Exclusion or sequence of Exclusion
+        Exclusion-zone layers with setbacks and filters, tried in order.
+    land_use : LandUseMask, optional
+        Categorical raster and allowed (or forbidden) classes.
+    existing : layer, optional
+        Existing facilities (points or polygons).  They come first in the
+        returned sites and are never screened out (see the module notes).
+    existing_role_field : str, optional
+        Field of ``existing`` holding "kept" or "optional" per facility;
+        empty values take ``existing_role``.
+    existing_role : "kept" or "optional"
+        Role of existing facilities without a role value.
+    cost_field : str, optional
+        Field with the opening cost.  Candidates must have it; existing
+        facilities use it when present, else cost 0.
+    default_cost : float
+        Candidates' cost when there is no ``cost_field`` (or the value is
+        empty).
+    study_area : layer or shapely geometry, optional
+        Sites whose point is not inside (or on the boundary of) its union are
+        rejected as ``outside``.  A bare shapely geometry is taken to be in
+        the working CRS.
+    min_spacing_m : float or str, optional
+        Pairs of sites closer than this go to ``Sites.close_pairs`` (pairs of
+        two kept facilities are left out: both are open anyway).
+    label_field : str, optional
+        Field with site names (candidates must have it; existing facilities
+        use it when present).
+    crs : CRS-like, optional
+        Working CRS (projected, metres).  Default: the candidates' CRS when
+        it is projected in metres, else a local UTM zone.
+
+    Returns
+    -------
+    sites : Sites
+        Existing facilities (indices ``0..k-1``), then kept candidates in
+        input order.  ``source`` is the feature id in the source layer.
+    record : ScreeningRecord
+        One row per existing facility then per candidate, in input order.
+
+    Raises
+    ------
+    InputError
+        When no candidate is left after screening (the message says which
+        rule removed how many), or a layer, field or value is unusable.
+    """
+    import geopandas as gpd
+
+    notes: list[str] = []
+    rules = [exclude] if isinstance(exclude, Exclusion) else list(exclude)
+    for rule in rules:
+        if not isinstance(rule, Exclusion):
+            raise ParameterError(f"exclude: expected Exclusion(...) items, got {type(rule).__name__}", "exclude")
+    if land_use is not None and not isinstance(land_use, LandUseMask):
+        raise ParameterError(f"land_use: expected LandUseMask(...), got {type(land_use).__name__}", "land_use")
+    default_role = _role(existing_role, "existing_role")
+    if not (math.isfinite(float(default_cost)) and float(default_cost) >= 0):
+        raise ParameterError(f"default_cost: must be 0 or more, got {default_cost!r}", "default_cost")
+    spacing = None if min_spacing_m is None else parse_distance(min_spacing_m, param="min_spacing_m")
+
+    cand, cand_name = _read(candidates, "candidates", allow_empty=existing is not None)
+    working = _working_crs(crs, cand)
+    cand = _reproject(cand, working, "candidates", notes)
+    cand_ids = _feature_ids(cand)
+    cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=True)
+    cand_label = _labels(cand, label_field, "candidate", cand_ids, "candidates layer", required=True)
+    cand_loc = _locate(cand, "candidates", notes)
+
+    if existing is not None:
+        ex, _ = _read(existing, "existing sites", allow_empty=True)
+        ex = _reproject(ex, working, "existing sites", notes)
+        ex_ids = _feature_ids(ex)
+        ex_cost = _costs(ex, cost_field, 0.0, "existing sites layer", notes, required=False)
+        ex_label = _labels(ex, label_field, "existing", ex_ids, "existing sites layer", required=False)
+        ex_role = _roles(ex, existing_role_field, default_role, notes)
+        ex_loc = _locate(ex, "existing sites", notes)
+        bad = np.flatnonzero(ex_loc.invalid != "")
+        if len(bad):
+            raise LayerError(
+                f"existing sites: feature {int(ex_ids[bad[0]])} has {ex_loc.invalid[bad[0]]} "
+                f"({len(bad)} such feature(s)); an existing facility needs a point or polygon location"
+            )
+    else:
+        ex_ids = np.zeros(0, dtype=np.int64)
+        ex_cost = np.zeros(0)
+        ex_label = np.zeros(0, dtype=object)
+        ex_role = np.zeros(0, dtype=np.int8)
+        ex_loc = _Located(np.zeros((0, 2)), np.zeros(0, dtype=object), np.zeros(0, dtype=bool), np.zeros(0, dtype=object))
+
+    k, n = len(ex_ids), len(cand_ids)
+    total = k + n
+    xy = np.concatenate([ex_loc.xy, cand_loc.xy])
+    footprint = np.concatenate([ex_loc.footprint, cand_loc.footprint])
+    located = _Located(xy, footprint, np.concatenate([ex_loc.is_point, cand_loc.is_point]),
+                       np.concatenate([ex_loc.invalid, cand_loc.invalid]))
+    usable = located.invalid == ""
+
+    verdict = np.full(total, Verdict.KEPT.value, dtype=object)
+    rule_text = np.full(total, "", dtype=object)
+    layer = np.full(total, "", dtype=object)
+    feature = np.full(total, -1, dtype=np.int64)
+    inval = ~usable
+    verdict[inval] = Verdict.INVALID.value
+    rule_text[inval] = located.invalid[inval]
+    layer[inval] = cand_name
+
+    def reject(mask: np.ndarray, what: Verdict, text: Any, name: str, feat: Any = -1) -> None:
+        new = mask & (verdict == Verdict.KEPT.value)
+        verdict[new] = what.value
+        rule_text[new] = text[new] if isinstance(text, np.ndarray) else text
+        layer[new] = name
+        feature[new] = feat[new] if isinstance(feat, np.ndarray) else feat
+
+    # study area
+    if study_area is not None:
+        if isinstance(study_area, shapely.Geometry):
+            area_geom, area_name = study_area, "study_area"
+        else:
+            area_frame, area_name = _read(study_area, "study area")
+            area_frame = _reproject(area_frame, working, "study area", notes)
+            parts = _repair(np.asarray(area_frame.geometry.array, dtype=object), "study area", notes)
+            area_geom = shapely.union_all(parts[~shapely.is_missing(parts)])
+        shapely.prepare(area_geom)
+        inside = np.zeros(total, dtype=bool)
+        inside[usable] = shapely.covers(area_geom, shapely.points(xy[usable]))
+        reject(usable & ~inside, Verdict.OUTSIDE, f"outside {area_name}", area_name)
+
+    # exclusion zones
+    nearest = np.full(total, np.inf)
+    rows = np.flatnonzero(usable)
+    for rule in rules:
+        geoms, ids = _exclusion_layer(rule, working, notes)
+        hits = _screen_zones(footprint, rows, geoms, ids, rule.setback_m)
+        nearest = np.minimum(nearest, hits.nearest)
+        reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
+    if not rules:
+        nearest[:] = np.inf
+
+    # land use
+    share = np.full(total, np.nan)
+    if land_use is not None:
+        share, worst = _land_use(land_use, located, rows, working, notes)
+        fails = usable & (share < land_use.min_share - 1e-12)
+        text = np.where(
+            located.is_point,
+            f"not on {land_use.describe()}",
+            f"less than {land_use.min_share:.0%} of the parcel on {land_use.describe()}",
+        ).astype(object)
+        reject(fails, Verdict.LAND_USE, text, land_use.name, worst)
+
+    # existing facilities stay, flagged
+    for i in range(k):
+        role = SiteRole(int(ex_role[i]))
+        tag = f"existing ({'kept' if role == SiteRole.KEPT else 'optional'})"
+        if verdict[i] != Verdict.KEPT.value:
+            message = f"existing site {ex_label[i]} is kept although it is {rule_text[i]} ({layer[i]}, feature {feature[i]})"
+            logger.warning(message)
+            notes.append(message)
+            rule_text[i] = f"{tag}, flagged: {rule_text[i]}"
+            verdict[i] = Verdict.KEPT.value
+        else:
+            rule_text[i] = tag
+
+    kept_cand = np.flatnonzero(verdict[k:] == Verdict.KEPT.value)
+    if n and not len(kept_cand):
+        raise InputError(_empty_message(n, verdict[k:], rule_text[k:]))
+
+    site_index = np.full(total, -1, dtype=np.int64)
+    site_index[:k] = np.arange(k)
+    site_index[k + kept_cand] = k + np.arange(len(kept_cand))
+    take = np.concatenate([np.arange(k), k + kept_cand])
+    roles = np.concatenate([ex_role, np.full(len(kept_cand), int(SiteRole.CANDIDATE), dtype=np.int8)])
+    pairs = np.zeros((0, 2), dtype=np.int64)
+    if spacing:
+        pairs = close_pairs(xy[take], spacing)
+        both_kept = (roles[pairs[:, 0]] == SiteRole.KEPT) & (roles[pairs[:, 1]] == SiteRole.KEPT)
+        if both_kept.any():
+            notes.append(f"minimum spacing: {int(both_kept.sum())} pair(s) of kept existing sites are closer than "
+                         f"{spacing:g} m; they stay open and are not a constraint")
+            pairs = pairs[~both_kept]
+    label = np.concatenate([ex_label, cand_label])
+    working_label = crs_label(working)
+    sites = Sites(
+        xy[take],
+        cost=np.concatenate([ex_cost, cand_cost[kept_cand]]),
+        role=roles,
+        label=label[take],
+        source=np.concatenate([ex_ids, cand_ids[kept_cand]]),
+        crs=working_label,
+        close_pairs=pairs,
+    )
+    record = ScreeningRecord(
+        xy, verdict, rule_text, layer, feature, nearest, site_index, label=label, crs=working_label,
+        land_use_share=share, notes=tuple(notes),
+    )
+    logger.info(
+        "screened %d candidate(s): %d kept; %d existing site(s)%s",
+        n, len(kept_cand), k, f"; {len(pairs)} close pair(s) under {spacing:g} m" if spacing else "",
+    )
+    return sites, record
+
+
+def _empty_message(n: int, verdict: np.ndarray, rule: np.ndarray) -> str:
+    keys, counts = np.unique(np.stack([verdict.astype(str), rule.astype(str)], axis=1), axis=0, return_counts=True)
+    order = np.argsort(-counts, kind="stable")
+    parts = [f"{int(counts[i])} {keys[i, 1]} ({keys[i, 0]})" for i in order]
+    return (
+        f"no candidate site is left after screening all {n}: " + "; ".join(parts)
+        + ". Relax a rule (a smaller setback, a filter, more allowed land-use classes) or check that the "
+        "layers cover the same place"
+    )
+
+
+def screening_summary(record: ScreeningRecord) -> list[dict[str, Any]]:
+    """Counts per verdict and rule: the kept first, then rejections, most frequent first.
+
+    Each item is ``{"verdict", "rule", "layer", "count"}``; existing
+    facilities are counted under their own ``existing (...)`` rules.
+    """
+    if not len(record):
+        return []
+    keys = np.stack([record.verdict.astype(str), record.rule.astype(str), record.layer.astype(str)], axis=1)
+    uniq, counts = np.unique(keys, axis=0, return_counts=True)
+    items = [{"verdict": str(u[0]), "rule": str(u[1]), "layer": str(u[2]), "count": int(c)} for u, c in zip(uniq, counts)]
+    items.sort(key=lambda d: (d["verdict"] != Verdict.KEPT.value, -d["count"], d["rule"]))
+    return items
+
+
+def screened_sites_frame(record: ScreeningRecord, sites: Sites | None = None) -> "gpd.GeoDataFrame":
+    """The ``screened_sites`` layer: one point per record row with its verdict and reasons.
+
+    Rows with verdict ``invalid`` get an empty geometry.  With ``sites`` a
+    ``role`` column (candidate / existing_kept / existing_optional) is added
+    for the kept rows.
+    """
+    import geopandas as gpd
+
+    located = record.verdict.astype(str) != Verdict.INVALID.value
+    geometry = np.full(len(record), None, dtype=object)
+    if located.any():
+        geometry[located] = shapely.points(record.xy[located])
+    data: dict[str, Any] = {
+        "label": record.label.astype(str),
+        "verdict": record.verdict.astype(str),
+        "rule": record.rule.astype(str),
+        "layer": record.layer.astype(str),
+        "feature": record.feature,
+        "nearest_exclusion_m": record.nearest_exclusion_m,
+        "land_use_share": record.land_use_share,
+        "site_index": record.site_index,
+    }
+    if sites is not None:
+        role = np.full(len(record), "", dtype=object)
+        kept = record.site_index >= 0
+        role[kept] = [SiteRole(int(r)).label for r in sites.role[record.site_index[kept]]]
+        data["role"] = role
+    frame = gpd.GeoDataFrame(data, geometry=geometry, crs=record.crs)
+    frame.attrs["description"] = "every candidate and existing site with its screening verdict and reason"
+    return frame
+
+
+# --------------------------------------------------------------------------- lattice
+
+
+def lattice_candidates(
+    study_area: Any,
+    spacing_m: float | str,
+    *,
+    shape: str | LatticeShape = "square",
+    crs: Any = None,
+) -> "gpd.GeoDataFrame":
+    """Candidate points on a square or hexagonal lattice over a study area.
+
+    The lattice starts half a spacing in from the lower-left corner of the
+    area's bounding box: square points at ``(minx + s/2 + i s, miny + s/2 + j s)``;
+    hexagonal rows ``h = s * sqrt(3) / 2`` apart starting at ``miny + h/2``,
+    odd rows shifted by ``s/2``, so every point has its neighbours ``s``
+    away.  Points covered by the area (its boundary included) are kept.
+
+    Parameters
+    ----------
+    study_area : layer, GeoDataFrame or shapely geometry
+        The area (a bare geometry needs ``crs``).
+    spacing_m : float or str
+        Distance between neighbouring points, e.g. ``500`` or ``"2 km"``.
+    shape : "square" or "hex"
+    crs : CRS-like, optional
+        Working CRS (default: the area's when projected in metres, else a
+        local UTM zone).
+
+    Returns
+    -------
+    GeoDataFrame
+        Points with ``label``, ``lattice_row`` and ``lattice_col``, in the
+        working CRS, usable as ``candidates`` of :func:`screen_sites`.
+
+    >>> from shapely import box
+    >>> len(lattice_candidates(box(0, 0, 1000, 500), 100, crs="EPSG:32626"))
+    50
+    """
+    import geopandas as gpd
+
+    spacing = parse_distance(spacing_m, param="spacing_m")
+    if not (math.isfinite(spacing) and spacing > 0):
+        raise ParameterError(f"spacing_m: must be a distance above 0 m, got {spacing_m!r}", "spacing_m")
+    try:
+        kind = LatticeShape(str(getattr(shape, "value", shape)).lower())
+    except ValueError:
+        raise ParameterError(
+            f"shape: {shape!r} is not a lattice shape; use one of {', '.join(s.value for s in LatticeShape)}", "shape"
+        ) from None
+    notes: list[str] = []
+    if isinstance(study_area, shapely.Geometry):
+        if crs is None:
+            raise CRSError("lattice_candidates: a bare geometry as study area needs crs='EPSG:...'")
+        working = require_projected(crs, "working CRS (crs)")
+        area = study_area
+    else:
+        frame, _ = _read(study_area, "study area")
+        working = _working_crs(crs, frame)
+        frame = _reproject(frame, working, "study area", notes)
+        parts = _repair(np.asarray(frame.geometry.array, dtype=object), "study area", notes)
+        area = shapely.union_all(parts[~shapely.is_missing(parts)])
+    if area is None or area.is_empty or area.area <= 0:
+        raise LayerError("study area: it has no area, so no lattice can be laid over it")
+    if not area.is_valid:
+        area = shapely.make_valid(area)
+    minx, miny, maxx, maxy = area.bounds
+    dy = spacing if kind is LatticeShape.SQUARE else spacing * math.sqrt(3.0) / 2.0
+    n_rows = int(math.floor((maxy - miny) / dy + 0.5))
+    n_cols = int(math.floor((maxx - minx) / spacing + 0.5))
+    if n_rows * max(n_cols, 1) > 20_000_000:
+        raise ParameterError(
+            f"spacing_m: {spacing:g} m would put about {n_rows * n_cols:,} points over the study area; "
+            "use a larger spacing (or split the area)",
+            "spacing_m",
+        )
+    row = np.arange(n_rows + 1)  # one spare row and column; the coverage test trims them
+    col = np.arange(n_cols + 1)
+    rr, cc = np.meshgrid(row, col, indexing="ij")
+    rr, cc = rr.ravel(), cc.ravel()
+    shift = np.where((kind is LatticeShape.HEX) & (rr % 2 == 1), spacing / 2.0, 0.0)
+    x = minx + spacing / 2.0 + cc * spacing + shift
+    y = miny + dy / 2.0 + rr * dy
+    shapely.prepare(area)
+    inside = shapely.covers(area, shapely.points(x, y))
+    rr, cc, x, y = rr[inside], cc[inside], x[inside], y[inside]
+    logger.info("lattice: %d %s point(s) %g m apart over the study area", len(x), kind.value, spacing)
+    out = gpd.GeoDataFrame(
+        {"label": [f"L{r}_{c}" for r, c in zip(rr, cc)], "lattice_row": rr, "lattice_col": cc},
+        geometry=shapely.points(x, y),
+        crs=working,
+    )
+    out.attrs["name"] = "lattice"
+    return out

@@ -1,0 +1,309 @@
+"""Screening of candidate sites by exclusion zones, setbacks, study area and existing sites.
+
+Independent checks: kept sites' clearance is re-measured with shapely's
+``distance`` on the raw geometries as read back from the GeoPackage (GEOS
+exact distance), nearest-zone distances against a brute-force minimum, close
+pairs against scipy's ``pdist`` (all pairwise distances).
+"""
+
+from __future__ import annotations
+
+import logging
+
+import geopandas as gpd
+import numpy as np
+import pytest
+import shapely
+from scipy.spatial.distance import pdist, squareform
+from shapely.geometry import Point, Polygon, box
+
+from geocover.errors import InputError, ParameterError
+from geocover.sites import Exclusion, close_pairs, screen_sites, screened_sites_frame, screening_summary
+from geocover.values import SiteRole, Verdict
+
+CRS = "EPSG:32626"
+X0, Y0 = 500_000.0, 4_000_000.0  # somewhere in UTM zone 26N
+
+
+@pytest.fixture()
+def world(tmp_path):
+    """A tiny GeoPackage: candidate points and parcels, flood zones, protected land, existing stations."""
+    path = tmp_path / "world.gpkg"
+    xs, ys = np.meshgrid(np.arange(0, 2000, 100.0), np.arange(0, 1000, 100.0))
+    points = gpd.GeoDataFrame(
+        {"name": [f"p{i}" for i in range(xs.size)], "cost": np.linspace(1, 3, xs.size)},
+        geometry=gpd.points_from_xy(X0 + xs.ravel() + 30, Y0 + ys.ravel() + 30),
+        crs=CRS,
+    )
+    flood = gpd.GeoDataFrame(
+        {"zone_class": ["A", "AE", "X"], "depth_m": [0.2, 1.5, 0.0]},
+        geometry=[
+            box(X0 + 200, Y0 + 200, X0 + 500, Y0 + 400),
+            Polygon([(X0 + 1000, Y0), (X0 + 1300, Y0 + 500), (X0 + 1100, Y0 + 700)]),
+            box(X0 + 1600, Y0 + 600, X0 + 1900, Y0 + 900),
+        ],
+        crs=CRS,
+    )
+    protected = gpd.GeoDataFrame(
+        {"kind": ["reserve"]}, geometry=[Point(X0 + 700, Y0 + 800).buffer(120)], crs=CRS
+    )
+    parcels = gpd.GeoDataFrame(
+        {"name": ["inside", "straddles", "clear", "near"], "cost": [5.0, 6.0, 7.0, 8.0]},
+        geometry=[
+            box(X0 + 250, Y0 + 250, X0 + 300, Y0 + 300),  # inside flood A
+            box(X0 + 450, Y0 + 350, X0 + 700, Y0 + 380),  # point-on-surface may be outside, footprint overlaps
+            box(X0 + 800, Y0 + 100, X0 + 900, Y0 + 150),
+            box(X0 + 520, Y0 + 200, X0 + 560, Y0 + 260),  # 20 m from flood A
+        ],
+        crs=CRS,
+    )
+    existing = gpd.GeoDataFrame(
+        {"name": ["old_north", "old_flooded"], "status": ["optional", "kept"], "cost": [0.5, 0.0]},
+        geometry=[Point(X0 + 1500, Y0 + 100), Point(X0 + 300, Y0 + 300)],
+        crs=CRS,
+    )
+    for name, frame in (
+        ("candidate_points", points), ("flood_zones", flood), ("protected_land", protected),
+        ("candidate_parcels", parcels), ("existing_stations", existing),
+    ):
+        frame.to_file(path, layer=name, driver="GPKG")
+    return path
+
+
+def _kept_footprints(path, layer, record, n_existing=0):
+    raw = gpd.read_file(path, layer=layer)
+    kept = record.site_index[n_existing:] >= 0
+    return np.asarray(raw.geometry.array)[kept]
+
+
+@pytest.mark.parametrize("setback", [0.0, 25.0, 80.0])
+def test_kept_points_clear_every_zone_by_the_setback(world, setback):
+    sites, record = screen_sites(
+        f"{world}:candidate_points",
+        exclude=[Exclusion(f"{world}:flood_zones", setback_m=setback), Exclusion(f"{world}:protected_land", setback_m=setback)],
+    )
+    kept = _kept_footprints(world, "candidate_points", record)
+    zones = np.concatenate([
+        np.asarray(gpd.read_file(world, layer=lyr).geometry.array) for lyr in ("flood_zones", "protected_land")
+    ])
+    # independent check: GEOS distance on the raw geometries, every kept site against every zone
+    dist = shapely.distance(kept[:, None], zones[None, :])
+    assert (dist >= setback).all()
+    if setback == 0:
+        assert not shapely.intersects(kept[:, None], zones[None, :]).any()
+    # and every rejected one really is too close to the zone named in its record
+    raw = gpd.read_file(world, layer="candidate_points")
+    names = {"flood_zones": gpd.read_file(world, layer="flood_zones"), "protected_land": gpd.read_file(world, layer="protected_land")}
+    rejected = np.flatnonzero(record.verdict == Verdict.EXCLUDED.value)
+    assert len(rejected) > 0
+    for i in rejected:
+        zone = names[record.layer[i]].geometry.iloc[record.feature[i]]
+        d = raw.geometry.iloc[i].distance(zone)
+        assert (d < setback) if setback > 0 else raw.geometry.iloc[i].intersects(zone)
+    assert len(sites) == int((record.site_index >= 0).sum())
+    assert (record.verdict[record.site_index >= 0] == Verdict.KEPT.value).all()
+
+
+def test_setback_boundary_is_inclusive_for_kept_sites():
+    zone = gpd.GeoDataFrame(geometry=[box(0, 0, 100, 100)], crs=CRS)
+    cands = gpd.GeoDataFrame(geometry=[Point(150, 50), Point(149.999, 50), Point(200, 200)], crs=CRS)
+    sites, record = screen_sites(cands, exclude=[Exclusion(zone, setback_m=50, name="zone")])
+    # exactly 50 m away is "at least 50 m away": kept; 49.999 m is not
+    assert record.verdict.tolist() == ["kept", "excluded", "kept"]
+    assert record.rule[1] == "within 50 m of zone"
+    np.testing.assert_allclose(record.nearest_exclusion_m, [50.0, 49.999, np.hypot(100, 100)])
+    # a site on the zone's boundary is inside it when there is no setback
+    touching = gpd.GeoDataFrame(geometry=[Point(100, 50), Point(100.001, 50)], crs=CRS)
+    _, rec0 = screen_sites(touching, exclude=[Exclusion(zone, name="zone")])
+    assert rec0.verdict.tolist() == ["excluded", "kept"]
+    assert rec0.rule[0] == "inside zone"
+
+
+def test_parcels_are_screened_by_their_whole_footprint(world):
+    sites, record = screen_sites(
+        f"{world}:candidate_parcels",
+        exclude=[Exclusion(f"{world}:flood_zones", setback_m=30, where="zone_class in ('A', 'AE')")],
+        label_field="name",
+        cost_field="cost",
+    )
+    assert record.verdict.tolist() == ["excluded", "excluded", "kept", "excluded"]
+    assert record.rule[0] == "within 30 m of flood_zones where zone_class in ('A', 'AE')"
+    assert record.layer[0] == "flood_zones" and record.feature[0] == 0
+    # the parcel's representative point lies inside the parcel
+    parcels = gpd.read_file(world, layer="candidate_parcels")
+    assert shapely.contains_xy(np.asarray(parcels.geometry.array), record.xy[:, 0], record.xy[:, 1]).all()
+    assert sites.label.tolist() == ["clear"]
+    assert sites.cost.tolist() == [7.0]
+    assert sites.source.tolist() == [2]
+    assert record.site_index.tolist() == [-1, -1, 0, -1]
+    # 'near' is 20 m from flood A: the record keeps that distance (to the raw zone, not the buffer)
+    assert record.nearest_exclusion_m[3] == pytest.approx(20.0)
+
+
+def test_where_filter_selects_zones_and_names_unknown_fields(world):
+    _, all_zones = screen_sites(f"{world}:candidate_points", exclude=[Exclusion(f"{world}:flood_zones")])
+    _, deep = screen_sites(f"{world}:candidate_points", exclude=[Exclusion(f"{world}:flood_zones", where="depth_m >= 0.5")])
+    assert set(all_zones.feature[all_zones.verdict == "excluded"]) == {0, 1, 2}
+    assert set(deep.feature[deep.verdict == "excluded"]) == {1}
+    with pytest.raises(ParameterError) as err:
+        screen_sites(f"{world}:candidate_points", exclude=[Exclusion(f"{world}:flood_zones", where="depth >= 0.5")])
+    message = str(err.value)
+    assert "no field 'depth'" in message and "zone_class, depth_m" in message
+
+
+def test_existing_sites_come_first_with_roles_and_are_flagged_not_removed(world, caplog):
+    with caplog.at_level(logging.WARNING, logger="geocover.sites"):
+        sites, record = screen_sites(
+            f"{world}:candidate_points",
+            exclude=[Exclusion(f"{world}:flood_zones", setback_m=10)],
+            existing=f"{world}:existing_stations",
+            existing_role_field="status",
+            cost_field="cost",
+            label_field="name",
+        )
+    assert sites.role[:2].tolist() == [SiteRole.OPTIONAL, SiteRole.KEPT]
+    assert (sites.role[2:] == SiteRole.CANDIDATE).all()
+    assert sites.label[:2].tolist() == ["old_north", "old_flooded"]
+    assert sites.cost[:2].tolist() == [0.5, 0.0]
+    assert record.site_index[:2].tolist() == [0, 1]
+    assert record.verdict[1] == "kept" and record.rule[1].startswith("existing (kept), flagged: within 10 m of flood_zones")
+    assert record.layer[1] == "flood_zones" and record.feature[1] == 0
+    assert record.rule[0] == "existing (optional)"
+    assert any("old_flooded" in r.message for r in caplog.records)
+    assert any("old_flooded" in note for note in record.notes)
+    # candidates keep their input order after the existing sites
+    kept = np.flatnonzero(record.site_index[2:] >= 0)
+    assert record.site_index[2:][kept].tolist() == list(range(2, 2 + len(kept)))
+    frame = screened_sites_frame(record, sites)
+    assert frame["role"].iloc[:2].tolist() == ["existing_optional", "existing_kept"]
+
+
+def test_existing_without_cost_field_costs_nothing_and_default_role(world):
+    sites, _ = screen_sites(
+        f"{world}:candidate_points", existing=f"{world}:existing_stations", existing_role="optional", default_cost=2.5
+    )
+    assert sites.cost[:2].tolist() == [0.0, 0.0]
+    assert (sites.cost[2:] == 2.5).all()
+    assert (sites.role[:2] == SiteRole.OPTIONAL).all()
+    with pytest.raises(ParameterError, match="'kept' or 'optional'"):
+        screen_sites(f"{world}:candidate_points", existing=f"{world}:existing_stations", existing_role="maybe")
+
+
+def test_constraint_layers_in_other_crs_are_reprojected(world, caplog):
+    flood = gpd.read_file(world, layer="flood_zones")
+    flood_ll = flood.to_crs("EPSG:4326")
+    _, base = screen_sites(f"{world}:candidate_points", exclude=[Exclusion(flood, setback_m=40, name="flood")])
+    with caplog.at_level(logging.INFO, logger="geocover.layers"):
+        _, moved = screen_sites(f"{world}:candidate_points", exclude=[Exclusion(flood_ll, setback_m=40, name="flood")])
+    assert moved.verdict.tolist() == base.verdict.tolist()
+    np.testing.assert_allclose(moved.nearest_exclusion_m, base.nearest_exclusion_m, atol=1e-3)
+    assert any("reprojected from EPSG:4326" in note for note in moved.notes)
+    assert any("reprojecting" in r.message for r in caplog.records)
+
+
+def test_geographic_candidates_get_a_local_working_crs(world):
+    cands = gpd.read_file(world, layer="candidate_points").to_crs("EPSG:4326")
+    sites, record = screen_sites(cands, exclude=[Exclusion(f"{world}:flood_zones")])
+    assert sites.crs == "EPSG:32626"
+    assert record.crs == "EPSG:32626"
+
+
+def test_invalid_zone_polygons_are_repaired_and_counted(caplog):
+    bowtie = Polygon([(0, 0), (100, 100), (100, 0), (0, 100)])  # self-intersecting
+    assert not bowtie.is_valid
+    zones = gpd.GeoDataFrame(geometry=[bowtie], crs=CRS)
+    cands = gpd.GeoDataFrame(geometry=[Point(20, 50), Point(50, 20), Point(200, 50)], crs=CRS)
+    with caplog.at_level(logging.WARNING, logger="geocover.sites"):
+        _, record = screen_sites(cands, exclude=[Exclusion(zones, name="bowtie")])
+    # (20, 50) is in the left triangle of the repaired bow tie, (50, 20) in neither triangle
+    assert record.verdict.tolist() == ["excluded", "kept", "kept"]
+    assert any("repaired 1 invalid geometry" in note for note in record.notes)
+
+
+def test_invalid_candidates_are_recorded_not_dropped():
+    cands = gpd.GeoDataFrame(
+        geometry=[Point(0, 0), None, shapely.LineString([(0, 0), (1, 1)]), Polygon()], crs=CRS
+    )
+    sites, record = screen_sites(cands)
+    assert record.verdict.tolist() == ["kept", "invalid", "invalid", "invalid"]
+    assert record.rule[1:].tolist() == ["no geometry", "geometry is not a point or a polygon", "empty geometry"]
+    assert np.isnan(record.xy[1:]).all() and len(sites) == 1
+    frame = screened_sites_frame(record)
+    assert frame.geometry.isna().tolist() == [False, True, True, True]
+
+
+def test_study_area_rejects_outside_points():
+    area = gpd.GeoDataFrame(geometry=[box(0, 0, 100, 100)], crs=CRS)
+    cands = gpd.GeoDataFrame(geometry=[Point(50, 50), Point(100, 50), Point(150, 50)], crs=CRS)
+    _, record = screen_sites(cands, study_area=area)
+    assert record.verdict.tolist() == ["kept", "kept", "outside"]
+
+
+def test_empty_result_says_which_rule_removed_how_many(world):
+    zone = gpd.GeoDataFrame(geometry=[box(X0 - 10, Y0 - 10, X0 + 1000, Y0 + 2000)], crs=CRS)
+    area = gpd.GeoDataFrame(geometry=[box(X0 - 10, Y0 - 10, X0 + 1000, Y0 + 2000)], crs=CRS)
+    with pytest.raises(InputError) as err:
+        screen_sites(f"{world}:candidate_points", exclude=[Exclusion(zone, name="everything")], study_area=area)
+    message = str(err.value)
+    # 20 x 10 grid: the 10 columns at x < 1000 fall in the zone, the other 10 outside the area
+    assert "100 inside everything (excluded)" in message
+    assert "100 outside study area (outside)" in message
+
+
+def test_nearest_exclusion_matches_brute_force(world):
+    _, record = screen_sites(
+        f"{world}:candidate_points",
+        exclude=[Exclusion(f"{world}:flood_zones", setback_m=15), Exclusion(f"{world}:protected_land")],
+    )
+    pts = np.asarray(gpd.read_file(world, layer="candidate_points").geometry.array)
+    zones = np.concatenate([
+        np.asarray(gpd.read_file(world, layer=lyr).geometry.array) for lyr in ("flood_zones", "protected_land")
+    ])
+    brute = shapely.distance(pts[:, None], zones[None, :]).min(axis=1)
+    np.testing.assert_allclose(record.nearest_exclusion_m, brute, rtol=0, atol=1e-9)
+    _, none = screen_sites(f"{world}:candidate_points")
+    assert np.isinf(none.nearest_exclusion_m).all()
+
+
+def test_close_pairs_match_all_pairwise_distances():
+    rng = np.random.default_rng(7)
+    xy = rng.uniform(0, 1000, size=(300, 2))
+    pairs = close_pairs(xy, 60.0)
+    # independent: scipy pdist, every pair below the spacing
+    d = squareform(pdist(xy))
+    i, j = np.nonzero(np.triu(d < 60.0, k=1))
+    assert pairs.tolist() == np.stack([i, j], axis=1).tolist()
+    assert pairs.dtype == np.int64 and pairs.shape[1] == 2
+
+
+def test_min_spacing_pairs_go_to_sites_but_not_between_two_kept_sites():
+    existing = gpd.GeoDataFrame(geometry=[Point(0, 0), Point(10, 0)], crs=CRS)
+    cands = gpd.GeoDataFrame(geometry=[Point(20, 0), Point(500, 0), Point(505, 0)], crs=CRS)
+    sites, record = screen_sites(cands, existing=existing, min_spacing_m="15 m")
+    # (0, 1) are both kept existing sites: no constraint; (1, 2) kept-candidate; (3, 4) candidates
+    assert sites.close_pairs.tolist() == [[1, 2], [3, 4]]
+    assert any("kept existing sites are closer" in n for n in record.notes)
+
+
+def test_summary_counts_per_rule(world):
+    _, record = screen_sites(
+        f"{world}:candidate_points",
+        exclude=[Exclusion(f"{world}:flood_zones"), Exclusion(f"{world}:protected_land", setback_m=50)],
+    )
+    summary = screening_summary(record)
+    assert summary[0]["verdict"] == "kept"
+    assert sum(item["count"] for item in summary) == len(record)
+    by_rule = {item["rule"]: item["count"] for item in summary}
+    assert by_rule["inside flood_zones"] == int((record.layer == "flood_zones").sum())
+    assert record.counts()["excluded"] == by_rule["inside flood_zones"] + by_rule["within 50 m of protected_land"]
+
+
+def test_bad_parameters_are_named(world):
+    with pytest.raises(ParameterError, match="setback_m"):
+        Exclusion(f"{world}:flood_zones", setback_m=-5)
+    with pytest.raises(ParameterError, match="position"):
+        Exclusion(f"{world}:flood_zones", where="zone_class in ('A'")
+    with pytest.raises(ParameterError, match="cost_field.*no field 'price'.*name, cost"):
+        screen_sites(f"{world}:candidate_points", cost_field="price")
+    with pytest.raises(ParameterError, match="label_field.*no field 'title'"):
+        screen_sites(f"{world}:candidate_points", label_field="title")
