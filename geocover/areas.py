@@ -167,10 +167,7 @@ def service_areas(
         if rule.metric == Metric.NETWORK:
             from .network import network_service_areas
 
-            net = getattr(reach, "notes", {}).get("network") if hasattr(reach, "notes") else None
-            if net is None:
-                raise InputError("service_areas: this network Reach carries no road graph; use network_service_areas")
-            return network_service_areas(net, idx, rule.limit, clip=clip)
+            return network_service_areas(reach, idx, clip=clip)
         raise InputError(f"service_areas: cannot draw service areas for a {rule.metric.value} Reach")
     try:
         sites, picked, limit = source
