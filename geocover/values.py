@@ -315,7 +315,8 @@ class Reach:
     ``weight`` are the people per demand row, ``cost`` and ``role`` describe
     the sites, ``close_pairs`` the site pairs that may not both open.
     ``demand`` and ``sites`` are the value objects the relation was made from,
-    when there were any.
+    when there were any.  ``notes`` carries what the builder found on the way
+    (for a road network: unsnapped points, disconnected parts, the graph).
     """
 
     matrix: sp.csr_matrix
@@ -326,6 +327,7 @@ class Reach:
     close_pairs: np.ndarray | None = None
     demand: Demand | None = None
     sites: Sites | None = None
+    notes: Mapping[str, Any] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         mat = self.matrix
@@ -350,6 +352,7 @@ class Reach:
         if self.sites is not None and len(self.sites) != m:
             raise InputError(f"reach: matrix has {m} columns but there are {len(self.sites)} sites")
         object.__setattr__(self, "matrix", mat)
+        object.__setattr__(self, "notes", dict(self.notes))
         for name, arr in (("weight", weight), ("cost", cost), ("role", role), ("close_pairs", pairs)):
             object.__setattr__(self, name, _freeze(arr))
 

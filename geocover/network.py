@@ -1,0 +1,782 @@
+"""Road travel-time coverage: a graph from line layers, snapping, bounded Dijkstra.
+
+How a time is made
+------------------
+* **Graph.**  Every straight segment of every road line is an edge; lines
+  that share a vertex share a node (coordinates must match exactly).  With
+  ``split_crossings=True`` lines are also cut wherever they cross.  An
+  edge's time is its length over its speed (a speed field, or a road-class
+  field looked up in a speed table the user can override).  One-way roads
+  are honoured when a direction field is given.
+* **Snapping.**  Demand points and sites are snapped to the nearest point of
+  the nearest segment (not the nearest vertex) within ``max_snap_m``; the
+  off-road leg is timed at ``offroad_speed_kmh``.  Points farther than
+  ``max_snap_m`` from every road are *unsnapped*: they get no coverage and
+  are listed in ``reach.notes``.
+* **Times.**  From each site, Dijkstra bounded by the limit
+  (:func:`scipy.sparse.csgraph.dijkstra` with ``limit``) runs from a virtual
+  node on the site's segment that leads to the segment's end(s) the site may
+  drive to.  A demand point's time is ``site off-road leg + min over its
+  segment's ends (end time + partial-segment time) + demand off-road leg``;
+  a demand point on the site's own segment may also be reached directly
+  along it (respecting one-way).  Coverage is inclusive: ``time <= limit``.
+  There is no off-road short cut between two points away from the roads.
+* **Turn penalty.**  ``turn_penalty_s`` is added each time a route passes
+  through an intersection (a node where three or more segments meet); shape
+  vertices inside a road cost nothing.  Starting or ending at a node is not
+  passing through it.
+* **Parts.**  Weakly connected parts of the network are counted and the
+  demand weight snapped to each is reported in ``reach.notes["components"]``.
+
+>>> import geopandas as gpd, numpy as np
+>>> from shapely import LineString
+>>> from geocover.values import Demand, Sites
+>>> roads = gpd.GeoDataFrame({"kmh": [36.0]}, geometry=[LineString([(0, 0), (1000, 0)])], crs="EPSG:32633")
+>>> d = Demand(np.array([[600.0, 0.0], [900.0, 0.0]]), np.ones(2), crs="EPSG:32633")
+>>> s = Sites(np.array([[0.0, 0.0]]), crs="EPSG:32633")
+>>> r = reach_network(d, s, roads, 60.0, speed_field="kmh")   # 10 m/s: 600 m in 60 s
+>>> r.matrix.toarray().ravel().tolist()
+[60.0, 0.0]
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, Mapping
+
+import numpy as np
+import scipy.sparse as sp
+
+from .crs import require_projected
+from .errors import CRSError, InputError, LayerError, ParameterError
+from .values import Demand, Metric, Reach, ServiceRule, Sites
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+
+__all__ = [
+    "DEFAULT_SPEEDS_KMH",
+    "RoadNetwork",
+    "Snap",
+    "build_network",
+    "reach_network",
+    "network_service_areas",
+]
+
+logger = logging.getLogger(__name__)
+
+#: Default speeds (km/h) by road class, for a ``class_field``; override any of them with ``speed_table``.
+#: The class names follow the OpenStreetMap ``highway`` vocabulary; the speeds are typical
+#: free-flow urban/rural values (common practice), not a standard.
+DEFAULT_SPEEDS_KMH: Mapping[str, float] = {
+    "motorway": 100.0,
+    "trunk": 80.0,
+    "primary": 60.0,
+    "secondary": 50.0,
+    "tertiary": 40.0,
+    "unclassified": 40.0,
+    "residential": 30.0,
+    "living_street": 10.0,
+    "service": 20.0,
+    "track": 15.0,
+}
+
+_FORWARD = {"1", "yes", "true", "forward", "y", "t"}
+_BACKWARD = {"-1", "reverse", "backward", "back"}
+_BOTH = {"0", "no", "false", "both", "n", "f", "", "none", "nan"}
+_BATCH_CELLS = 8_000_000  # dense Dijkstra rows per batch: sources x nodes
+
+
+# --------------------------------------------------------------------------- the graph
+
+
+@dataclass(frozen=True, eq=False)
+class Snap:
+    """Where points meet the network.
+
+    ``segment`` is the snapped segment (-1 when unsnapped), ``t`` the
+    fraction along it from its first end, ``distance`` the off-road
+    distance in metres and ``xy`` the snapped point.
+    """
+
+    segment: np.ndarray
+    t: np.ndarray
+    distance: np.ndarray
+    xy: np.ndarray
+
+    @property
+    def snapped(self) -> np.ndarray:
+        return self.segment >= 0
+
+
+@dataclass(frozen=True, eq=False)
+class RoadNetwork:
+    """A directed road graph made of straight segments.
+
+    ``seg_u``/``seg_v`` are each segment's ends in digitised order,
+    ``forward``/``backward`` whether it may be driven u->v / v->u,
+    ``seg_time`` its full travel time (s), ``graph`` the directed CSR
+    adjacency of node-to-node times including the intersection penalty,
+    ``component`` the weakly connected part of each node.
+    """
+
+    node_xy: np.ndarray
+    seg_u: np.ndarray
+    seg_v: np.ndarray
+    seg_length: np.ndarray
+    seg_time: np.ndarray
+    forward: np.ndarray
+    backward: np.ndarray
+    seg_feature: np.ndarray
+    intersection: np.ndarray
+    turn_penalty_s: float
+    graph: sp.csr_matrix
+    component: np.ndarray
+    n_components: int
+    crs: str | None = None
+    _cache: dict = field(default_factory=dict, repr=False)
+
+    @property
+    def n_nodes(self) -> int:
+        return len(self.node_xy)
+
+    @property
+    def n_segments(self) -> int:
+        return len(self.seg_u)
+
+    def penalty(self, nodes: np.ndarray) -> np.ndarray:
+        """Penalty for passing through ``nodes`` (0 at non-intersections)."""
+        return np.where(self.intersection[nodes], self.turn_penalty_s, 0.0)
+
+    def snap(self, xy: np.ndarray, max_snap_m: float) -> Snap:
+        """Snap points to the nearest segment within ``max_snap_m``."""
+        import shapely
+
+        xy = np.asarray(xy, dtype=np.float64).reshape(-1, 2)
+        k = len(xy)
+        seg = np.full(k, -1, dtype=np.int64)
+        t = np.zeros(k)
+        dist = np.full(k, np.inf)
+        out = np.full((k, 2), np.nan)
+        if k == 0 or self.n_segments == 0:
+            return Snap(seg, t, dist, out)
+        tree = self._cache.get("tree")
+        if tree is None:
+            a, b = self.node_xy[self.seg_u], self.node_xy[self.seg_v]
+            tree = shapely.STRtree(shapely.linestrings(np.stack([a, b], axis=1)))
+            self._cache["tree"] = tree
+        hit, _ = tree.query_nearest(
+            shapely.points(xy), max_distance=float(max_snap_m), return_distance=True, all_matches=False
+        )
+        pts, segs = hit[0], hit[1].astype(np.int64)
+        a, b = self.node_xy[self.seg_u[segs]], self.node_xy[self.seg_v[segs]]
+        ab = b - a
+        len2 = np.einsum("ij,ij->i", ab, ab)
+        tt = np.clip(np.einsum("ij,ij->i", xy[pts] - a, ab) / np.where(len2 > 0, len2, 1.0), 0.0, 1.0)
+        proj = a + tt[:, None] * ab
+        dd = np.hypot(*(xy[pts] - proj).T)
+        ok = dd <= max_snap_m
+        pts, segs, tt, proj, dd = pts[ok], segs[ok], tt[ok], proj[ok], dd[ok]
+        seg[pts], t[pts], dist[pts], out[pts] = segs, tt, dd, proj
+        return Snap(seg, t, dist, out)
+
+
+def _direction_codes(values: Any, field_name: str) -> np.ndarray:
+    out = np.zeros(len(values), dtype=np.int8)
+    bad: set[str] = set()
+    for i, value in enumerate(values):
+        if value is None or (isinstance(value, float) and math.isnan(value)):
+            continue
+        if isinstance(value, (bool, np.bool_)):
+            out[i] = 1 if value else 0
+            continue
+        text = str(value).strip().lower()
+        if text.endswith(".0"):
+            text = text[:-2]
+        if text in _FORWARD:
+            out[i] = 1
+        elif text in _BACKWARD:
+            out[i] = -1
+        elif text not in _BOTH:
+            bad.add(str(value))
+    if bad:
+        raise LayerError(
+            f"roads: field {field_name!r} has direction value(s) {sorted(bad)[:5]} that are not understood; "
+            "use yes/1/true/forward (one-way along the line's drawing direction), -1/reverse/backward "
+            "(one-way against it) or no/0/false/both (two-way)"
+        )
+    return out
+
+
+def _feature_speeds(
+    frame: "gpd.GeoDataFrame", speed_field: str | None, class_field: str | None, speed_table: Mapping[str, float] | None
+) -> np.ndarray:
+    columns = [c for c in frame.columns if c != frame.geometry.name]
+    if speed_field is not None:
+        if speed_field not in frame.columns:
+            raise LayerError(f"roads: there is no field {speed_field!r} for speed_field; the fields are: {', '.join(map(str, columns))}")
+        try:
+            speeds = np.asarray(frame[speed_field], dtype=np.float64)
+        except (TypeError, ValueError):
+            raise LayerError(f"roads: field {speed_field!r} must hold speeds in km/h (numbers)") from None
+        bad = np.flatnonzero(~np.isfinite(speeds) | (speeds <= 0))
+        if len(bad):
+            raise LayerError(
+                f"roads: field {speed_field!r} has {len(bad)} missing, zero or negative speed(s) (first at row "
+                f"{int(bad[0])}: {speeds[bad[0]]}); fill them in km/h or remove those roads"
+            )
+        return speeds
+    if class_field is None:
+        raise ParameterError(
+            "reach_network: give speed_field (km/h per road) or class_field (a road class looked up in speed_table)",
+            "speed_field",
+        )
+    if class_field not in frame.columns:
+        raise LayerError(f"roads: there is no field {class_field!r} for class_field; the fields are: {', '.join(map(str, columns))}")
+    table = {str(k): float(v) for k, v in DEFAULT_SPEEDS_KMH.items()}
+    for k, v in (speed_table or {}).items():
+        try:
+            value = float(v)
+        except (TypeError, ValueError):
+            raise ParameterError(f"speed_table: the speed for {k!r} must be a number of km/h, got {v!r}", "speed_table") from None
+        if not (math.isfinite(value) and value > 0):
+            raise ParameterError(f"speed_table: the speed for {k!r} must be positive, got {v!r}", "speed_table")
+        table[str(k)] = value
+    classes = [str(c) for c in frame[class_field]]
+    missing = sorted({c for c in classes if c not in table})
+    if missing:
+        raise LayerError(
+            f"roads: road class(es) {missing[:8]} in field {class_field!r} have no speed; add them to speed_table "
+            f"(km/h), e.g. speed_table={{{missing[0]!r}: 30}}"
+        )
+    return np.array([table[c] for c in classes], dtype=np.float64)
+
+
+def _split_at_crossings(lines: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Cut lines wherever they cross; returns the pieces and the line each came from (drawing order kept)."""
+    import shapely
+
+    noded = shapely.get_parts(shapely.union_all(lines))
+    tree = shapely.STRtree(lines)
+    mids = shapely.line_interpolate_point(noded, 0.5, normalized=True)
+    pairs = tree.query(mids, predicate="dwithin", distance=1e-7)
+    # first candidate line per piece whose geometry really carries the piece
+    order = np.lexsort((pairs[1], pairs[0]))
+    pairs = pairs[:, order]
+    first = np.unique(pairs[0], return_index=True)[1]
+    owner = np.full(len(noded), -1, dtype=np.int64)
+    owner[pairs[0, first]] = pairs[1, first]
+    keep = owner >= 0
+    noded, owner = noded[keep], owner[keep]
+    start = shapely.line_locate_point(lines[owner], shapely.get_point(noded, 0))
+    end = shapely.line_locate_point(lines[owner], shapely.get_point(noded, -1))
+    flip = start > end
+    if flip.any():
+        noded[flip] = shapely.reverse(noded[flip])
+    return noded, owner
+
+
+def build_network(
+    roads: "gpd.GeoDataFrame",
+    *,
+    speed_field: str | None = None,
+    class_field: str | None = None,
+    speed_table: Mapping[str, float] | None = None,
+    oneway_field: str | None = None,
+    turn_penalty_s: float = 0.0,
+    split_crossings: bool = False,
+) -> RoadNetwork:
+    """A :class:`RoadNetwork` from a line layer already in the working CRS.
+
+    Parameters
+    ----------
+    roads : GeoDataFrame
+        LineString / MultiLineString features in a projected CRS (metres).
+    speed_field, class_field, speed_table, oneway_field, turn_penalty_s, split_crossings
+        See :func:`reach_network`.
+    """
+    import shapely
+
+    if roads.crs is not None and roads.crs.is_geographic:
+        raise CRSError("roads: the layer is in a geographic CRS; reproject it to the projected working CRS first")
+    penalty = float(turn_penalty_s)
+    if not (math.isfinite(penalty) and penalty >= 0):
+        raise ParameterError(f"turn_penalty_s: must be zero or more seconds, got {turn_penalty_s!r}", "turn_penalty_s")
+    geoms = np.asarray(roads.geometry.values, dtype=object)
+    present = np.array([g is not None and not g.is_empty for g in geoms], dtype=bool)
+    if (~present).any():
+        logger.warning("roads: %d feature(s) without geometry are skipped", int((~present).sum()))
+    kinds = shapely.get_type_id(np.where(present, geoms, None))
+    wrong = present & ~np.isin(kinds, [1, 5])  # LineString, MultiLineString
+    if wrong.any():
+        first = int(np.flatnonzero(wrong)[0])
+        raise LayerError(
+            f"roads: feature {first} is a {geoms[first].geom_type}; the road layer must hold lines "
+            "(LineString or MultiLineString)"
+        )
+    speeds = _feature_speeds(roads, speed_field, class_field, speed_table)
+    if oneway_field is not None:
+        if oneway_field not in roads.columns:
+            raise LayerError(f"roads: there is no field {oneway_field!r} for oneway_field")
+        direction = _direction_codes(list(roads[oneway_field]), oneway_field)
+    else:
+        direction = np.zeros(len(roads), dtype=np.int8)
+    rows = np.flatnonzero(present)
+    parts, part_idx = shapely.get_parts(geoms[rows], return_index=True)
+    part_feature = rows[part_idx]
+    if split_crossings and len(parts):
+        parts, owner = _split_at_crossings(parts)
+        part_feature = part_feature[owner]
+    coords, line_of = shapely.get_coordinates(parts, return_index=True)
+    same = line_of[1:] == line_of[:-1]
+    a_idx = np.flatnonzero(same)
+    pa, pb = coords[a_idx], coords[a_idx + 1]
+    length = np.hypot(*(pb - pa).T)
+    nonzero = length > 0
+    a_idx, length = a_idx[nonzero], length[nonzero]
+    seg_feature = part_feature[line_of[a_idx]]
+    # nodes: exactly shared coordinates
+    uniq, inverse = np.unique(coords, axis=0, return_inverse=True)
+    inverse = inverse.ravel()
+    seg_u, seg_v = inverse[a_idx].astype(np.int64), inverse[a_idx + 1].astype(np.int64)
+    seg_time = length / (speeds[seg_feature] / 3.6)
+    code = direction[seg_feature]
+    forward, backward = code >= 0, code <= 0
+    n = len(uniq)
+    # intersections: three or more distinct neighbouring nodes
+    und = np.unique(np.sort(np.column_stack([seg_u, seg_v]), axis=1), axis=0) if len(seg_u) else np.zeros((0, 2), np.int64)
+    degree = np.bincount(und.ravel(), minlength=n)
+    intersection = degree >= 3
+    tail = np.concatenate([seg_u[forward], seg_v[backward]])
+    head = np.concatenate([seg_v[forward], seg_u[backward]])
+    weight = np.concatenate([seg_time[forward], seg_time[backward]])
+    weight = weight + np.where(intersection[tail], penalty, 0.0)
+    graph = _min_csr(tail, head, weight, n)
+    from scipy.sparse.csgraph import connected_components
+
+    n_comp, labels = connected_components(graph, directed=True, connection="weak") if n else (0, np.zeros(0, np.int64))
+    logger.info("road network: %d nodes, %d segments, %d part(s)", n, len(seg_u), n_comp)
+    return RoadNetwork(
+        node_xy=uniq,
+        seg_u=seg_u,
+        seg_v=seg_v,
+        seg_length=length,
+        seg_time=seg_time,
+        forward=forward,
+        backward=backward,
+        seg_feature=seg_feature.astype(np.int64),
+        intersection=intersection,
+        turn_penalty_s=penalty,
+        graph=graph,
+        component=np.asarray(labels, dtype=np.int64),
+        n_components=int(n_comp),
+        crs=roads.crs.to_string() if roads.crs is not None else None,
+    )
+
+
+def _min_csr(tail: np.ndarray, head: np.ndarray, weight: np.ndarray, n: int) -> sp.csr_matrix:
+    """CSR adjacency keeping the smallest weight of parallel edges (and explicit zeros)."""
+    order = np.lexsort((weight, head, tail))
+    tail, head, weight = tail[order], head[order], weight[order]
+    first = np.ones(len(tail), dtype=bool)
+    first[1:] = (tail[1:] != tail[:-1]) | (head[1:] != head[:-1])
+    tail, head, weight = tail[first], head[first], weight[first]
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(np.bincount(tail, minlength=n), out=indptr[1:])
+    return sp.csr_matrix((weight, head, indptr), shape=(n, n))
+
+
+# --------------------------------------------------------------------------- travel times
+
+
+def _legs(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Ends of each snapped point's segment and the time from each end to the point (inf if not allowed)."""
+    seg = snap.segment[idx]
+    u, v = net.seg_u[seg], net.seg_v[seg]
+    full = net.seg_time[seg]
+    t = snap.t[idx]
+    from_u = np.where(net.forward[seg], t * full + net.penalty(u), np.inf)
+    from_v = np.where(net.backward[seg], (1.0 - t) * full + net.penalty(v), np.inf)
+    return u, v, from_u, from_v
+
+
+def _source_graph(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> sp.csr_matrix:
+    """The road graph plus one virtual source node per snapped site (no edges into it)."""
+    n = net.n_nodes
+    seg = snap.segment[idx]
+    t = snap.t[idx]
+    full = net.seg_time[seg]
+    k = len(idx)
+    src = n + np.arange(k)
+    to_u = net.backward[seg]  # leaving the site towards u means driving v -> u
+    to_v = net.forward[seg]
+    g = net.graph.tocoo()
+    tail = np.concatenate([g.row, src[to_u], src[to_v]])
+    head = np.concatenate([g.col, net.seg_u[seg][to_u], net.seg_v[seg][to_v]])
+    weight = np.concatenate([g.data, (t * full)[to_u], ((1.0 - t) * full)[to_v]])
+    return _min_csr(tail.astype(np.int64), head.astype(np.int64), weight, n + k)
+
+
+def _network_pairs(
+    net: RoadNetwork,
+    dsnap: Snap,
+    d_off: np.ndarray,
+    ssnap: Snap,
+    s_off: np.ndarray,
+    limit: float,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(demand, site, seconds) of every covering pair."""
+    from scipy.sparse.csgraph import dijkstra
+
+    n_nodes = net.n_nodes
+    d_idx = np.flatnonzero(dsnap.snapped)
+    s_idx = np.flatnonzero(ssnap.snapped & (s_off <= limit))
+    rows_out, cols_out, vals_out = [], [], []
+    if len(d_idx) == 0 or len(s_idx) == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
+    du, dv, d_from_u, d_from_v = _legs(net, dsnap, d_idx)
+    # node -> demand points on a segment ending there
+    ends = np.concatenate([du, dv])
+    which = np.concatenate([np.arange(len(d_idx)), np.arange(len(d_idx))])
+    order = np.argsort(ends, kind="stable")
+    node_dem = which[order]
+    node_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
+    np.cumsum(np.bincount(ends, minlength=n_nodes), out=node_ptr[1:])
+    # segment -> demand points on it (for the direct leg along the site's own segment)
+    dseg = dsnap.segment[d_idx]
+    seg_order = np.argsort(dseg, kind="stable")
+    seg_ptr = np.zeros(net.n_segments + 1, dtype=np.int64)
+    np.cumsum(np.bincount(dseg, minlength=net.n_segments), out=seg_ptr[1:])
+
+    graph = _source_graph(net, ssnap, s_idx)
+    budget = limit - s_off[s_idx]  # time left on the network for each site
+    batch = max(1, int(_BATCH_CELLS // max(graph.shape[0], 1)))
+    for a in range(0, len(s_idx), batch):
+        b = min(a + batch, len(s_idx))
+        times = dijkstra(graph, directed=True, indices=n_nodes + np.arange(a, b), limit=float(budget[a:b].max()))
+        times = times[:, :n_nodes]
+        r, node = np.nonzero(times <= budget[a:b, None])
+        if len(r):
+            cnt = node_ptr[node + 1] - node_ptr[node]
+            rr = np.repeat(r, cnt)
+            first = np.cumsum(cnt) - cnt
+            pos = np.repeat(node_ptr[node] - first, cnt) + np.arange(int(cnt.sum()))
+            dd = node_dem[pos]
+            via = np.repeat(node, cnt)
+            tu = times[rr, du[dd]]
+            # one entry per (site, demand): keep the one arriving through u, or through v when u is not reached
+            keep = (via == du[dd]) | ~(tu <= budget[a + rr])
+            rr, dd, tu = rr[keep], dd[keep], tu[keep]
+            tv = times[rr, dv[dd]]
+            net_t = np.minimum(tu + d_from_u[dd], tv + d_from_v[dd])
+            total = s_off[s_idx[a + rr]] + net_t + d_off[d_idx[dd]]
+            ok = total <= limit
+            rows_out.append(d_idx[dd[ok]])
+            cols_out.append(s_idx[a + rr[ok]])
+            vals_out.append(total[ok])
+    # direct legs: demand on the site's own segment
+    sseg = ssnap.segment[s_idx]
+    cnt = seg_ptr[sseg + 1] - seg_ptr[sseg]
+    if cnt.sum():
+        rs = np.repeat(np.arange(len(s_idx)), cnt)
+        first = np.cumsum(cnt) - cnt
+        pos = np.repeat(seg_ptr[sseg] - first, cnt) + np.arange(int(cnt.sum()))
+        dd = seg_order[pos]
+        seg = sseg[rs]
+        ts, td = ssnap.t[s_idx[rs]], dsnap.t[d_idx[dd]]
+        full = net.seg_time[seg]
+        ahead = np.where(net.forward[seg] & (td >= ts), (td - ts) * full, np.inf)
+        behind = np.where(net.backward[seg] & (td <= ts), (ts - td) * full, np.inf)
+        total = s_off[s_idx[rs]] + np.minimum(ahead, behind) + d_off[d_idx[dd]]
+        ok = total <= limit
+        rows_out.append(d_idx[dd[ok]])
+        cols_out.append(s_idx[rs[ok]])
+        vals_out.append(total[ok])
+    if not rows_out:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
+    return np.concatenate(rows_out), np.concatenate(cols_out), np.concatenate(vals_out)
+
+
+def _min_pairs(rows: np.ndarray, cols: np.ndarray, vals: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Keep the smallest value of each (row, col) pair."""
+    if len(rows) == 0:
+        return rows, cols, vals
+    key = rows.astype(np.int64) * max(m, 1) + cols
+    order = np.lexsort((vals, key))
+    key, vals = key[order], vals[order]
+    first = np.ones(len(key), dtype=bool)
+    first[1:] = key[1:] != key[:-1]
+    return rows[order][first], cols[order][first], vals[first]
+
+
+def _resolve_roads(roads: Any, crs: Any) -> "gpd.GeoDataFrame":
+    from .layers import LayerRef, read_vector, to_crs
+
+    try:
+        import geopandas as gpd
+    except ImportError:  # pragma: no cover - geopandas is a dependency
+        raise InputError("roads: geopandas is needed to read the road layer") from None
+    if isinstance(roads, gpd.GeoDataFrame):
+        frame = roads
+        if frame.crs is None:
+            raise CRSError("roads: the road layer has no CRS; set one (frame.set_crs('EPSG:...'))")
+    elif isinstance(roads, (str, LayerRef)) or hasattr(roads, "__fspath__"):
+        frame = read_vector(roads if not hasattr(roads, "__fspath__") else str(roads), what="roads")
+    else:
+        raise InputError(f"roads: expected a path, 'path:layer', LayerRef or GeoDataFrame, got {type(roads).__name__}")
+    if len(frame) == 0:
+        raise LayerError("roads: the road layer has no features")
+    return to_crs(frame, crs, "roads")
+
+
+def _components_report(net: RoadNetwork, dsnap: Snap, demand: Demand, ssnap: Snap) -> dict[str, Any]:
+    k = net.n_components
+    d_comp = np.full(len(demand), -1, dtype=np.int64)
+    ok = dsnap.snapped
+    d_comp[ok] = net.component[net.seg_u[dsnap.segment[ok]]]
+    s_comp = np.full(len(ssnap.segment), -1, dtype=np.int64)
+    ok_s = ssnap.snapped
+    s_comp[ok_s] = net.component[net.seg_u[ssnap.segment[ok_s]]]
+    weight = np.bincount(d_comp[ok], weights=demand.weight[ok], minlength=k) if k else np.zeros(0)
+    points = np.bincount(d_comp[ok], minlength=k) if k else np.zeros(0, np.int64)
+    sites = np.bincount(s_comp[ok_s], minlength=k) if k else np.zeros(0, np.int64)
+    nodes = np.bincount(net.component, minlength=k) if k else np.zeros(0, np.int64)
+    return {
+        "count": int(k),
+        "nodes": nodes,
+        "demand_weight": weight,
+        "demand_points": points,
+        "sites": sites,
+        "demand_component": d_comp,
+        "site_component": s_comp,
+        "weight_without_site": float(weight[sites == 0].sum()) if k else 0.0,
+    }
+
+
+def reach_network(
+    demand: Demand,
+    sites: Sites,
+    roads: Any,
+    limit_s: float,
+    *,
+    speed_field: str | None = None,
+    class_field: str | None = None,
+    speed_table: Mapping[str, float] | None = None,
+    oneway_field: str | None = None,
+    offroad_speed_kmh: float = 5.0,
+    max_snap_m: float = 500.0,
+    turn_penalty_s: float = 0.0,
+    split_crossings: bool = False,
+) -> Reach:
+    """Coverage by travel time on a road network (seconds, inclusive).
+
+    Parameters
+    ----------
+    demand, sites : Demand, Sites
+        In the same projected working CRS.
+    roads : path, "path:layer", LayerRef or GeoDataFrame
+        Road lines; reprojected to the demand's CRS when needed.
+    limit_s : float
+        Travel-time limit in seconds (e.g. 480 for 8 minutes), > 0.
+    speed_field : str, optional
+        Field with the speed of each road in km/h.
+    class_field : str, optional
+        Field with the road class, looked up in :data:`DEFAULT_SPEEDS_KMH`
+        updated by ``speed_table`` (used when ``speed_field`` is not given).
+    speed_table : mapping, optional
+        Road class -> km/h, overriding or extending the defaults.
+    oneway_field : str, optional
+        Direction field: yes/1/true/forward = one-way along the drawing
+        direction, -1/reverse/backward = against it, no/0/false/both or
+        empty = two-way.  Without it every road is two-way.
+    offroad_speed_kmh : float
+        Speed of the off-road legs between a point and its snapped position.
+    max_snap_m : float
+        Points farther than this from every road are not snapped; they are
+        reported in ``reach.notes`` and get no coverage.
+    turn_penalty_s : float
+        Seconds added per intersection passed through.
+    split_crossings : bool
+        Also cut lines where they cross without a shared vertex (for
+        layers drawn without nodes at junctions; leave off where roads pass
+        over each other on bridges).
+
+    Returns
+    -------
+    Reach
+        CSR demand x sites, values = seconds, rule
+        ``ServiceRule(Metric.NETWORK, limit_s, "s")``.  ``reach.notes``
+        holds ``unsnapped_demand`` / ``unsnapped_sites`` (indices),
+        ``components`` (how many parts, demand weight and sites on each),
+        ``network`` (the :class:`RoadNetwork`) and the snaps.
+    """
+    if not isinstance(demand, Demand) or not isinstance(sites, Sites):
+        raise InputError("reach_network: expected a geocover Demand and Sites")
+    try:
+        limit = float(limit_s)
+    except (TypeError, ValueError):
+        raise ParameterError(f"limit: expected a positive number of seconds, got {limit_s!r}", "limit") from None
+    if not (math.isfinite(limit) and limit > 0):
+        raise ParameterError(f"limit: the travel-time limit must be a positive number of seconds, got {limit_s!r}", "limit")
+    for name, value in (("offroad_speed_kmh", offroad_speed_kmh), ("max_snap_m", max_snap_m)):
+        if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+            raise ParameterError(f"{name}: must be a positive number, got {value!r}", name)
+    crs = demand.crs if demand.crs is not None else sites.crs
+    if crs is None:
+        raise CRSError("reach_network: the demand has no CRS, so the roads cannot be matched to it; give it the working CRS")
+    require_projected(crs, "demand CRS")
+    if sites.crs is not None and demand.crs is not None:
+        from .coverage import _same_crs
+
+        _same_crs(demand, sites)
+    frame = _resolve_roads(roads, crs)
+    net = build_network(
+        frame,
+        speed_field=speed_field,
+        class_field=class_field,
+        speed_table=speed_table,
+        oneway_field=oneway_field,
+        turn_penalty_s=turn_penalty_s,
+        split_crossings=split_crossings,
+    )
+    object.__setattr__(net, "crs", str(crs))
+    dsnap = net.snap(demand.xy, float(max_snap_m))
+    ssnap = net.snap(sites.xy, float(max_snap_m))
+    v_off = float(offroad_speed_kmh) / 3.6
+    d_off = dsnap.distance / v_off
+    s_off = ssnap.distance / v_off
+    rows, cols, vals = _network_pairs(net, dsnap, d_off, ssnap, s_off, limit)
+    rows, cols, vals = _min_pairs(rows, cols, vals, len(sites))
+    unsnapped_d = np.flatnonzero(~dsnap.snapped)
+    unsnapped_s = np.flatnonzero(~ssnap.snapped)
+    if len(unsnapped_d):
+        logger.warning(
+            "network coverage: %d demand point(s) (%.6g people) lie more than %g m from every road and are not covered",
+            len(unsnapped_d), float(demand.weight[unsnapped_d].sum()), max_snap_m,
+        )
+    if len(unsnapped_s):
+        logger.warning("network coverage: %d site(s) lie more than %g m from every road and cover nothing", len(unsnapped_s), max_snap_m)
+    comps = _components_report(net, dsnap, demand, ssnap)
+    if comps["count"] > 1:
+        logger.warning(
+            "network coverage: the road network has %d disconnected parts; %.6g people sit on parts with no site",
+            comps["count"], comps["weight_without_site"],
+        )
+    notes = {
+        "unsnapped_demand": unsnapped_d,
+        "unsnapped_sites": unsnapped_s,
+        "unsnapped_demand_weight": float(demand.weight[unsnapped_d].sum()),
+        "components": comps,
+        "network": net,
+        "demand_snap": dsnap,
+        "site_snap": ssnap,
+        "offroad_speed_kmh": float(offroad_speed_kmh),
+        "max_snap_m": float(max_snap_m),
+    }
+    mat = sp.csr_matrix((vals, (rows, cols)), shape=(len(demand), len(sites)))
+    mat.sum_duplicates()  # pairs are unique already; this sorts the columns
+    return Reach(
+        mat,
+        weight=demand.weight,
+        cost=sites.cost,
+        role=sites.role,
+        rule=ServiceRule(Metric.NETWORK, limit, "s"),
+        close_pairs=sites.close_pairs,
+        demand=demand,
+        sites=sites,
+        notes=notes,
+    )
+
+
+# --------------------------------------------------------------------------- service areas
+
+
+def network_service_areas(reach: Reach, chosen: Any = None, limit_s: float | None = None, clip: Any = None, steps: int = 4) -> np.ndarray:
+    """The area each chosen site reaches within the limit, for display.
+
+    Built from the reached road pieces (partial segments cut at the exact
+    remaining time) buffered by the off-road distance that the remaining
+    time still allows (capped at ``max_snap_m``); each piece is split into
+    ``steps`` parts buffered by the allowance at their far end, so the
+    polygon is a slight under-estimate.  It is an approximation for maps;
+    coverage itself comes from the graph.
+    """
+    import shapely
+    from scipy.sparse.csgraph import dijkstra
+
+    notes = getattr(reach, "notes", None) or {}
+    net: RoadNetwork | None = notes.get("network")
+    if net is None:
+        raise InputError("network_service_areas: the Reach carries no road network (make it with reach_network)")
+    ssnap: Snap = notes["site_snap"]
+    limit = float(reach.rule.limit if limit_s is None else limit_s)
+    m = len(ssnap.segment)
+    idx = np.arange(m) if chosen is None else np.asarray(chosen, dtype=np.int64).ravel()
+    if idx.size and (idx.min() < 0 or idx.max() >= m):
+        raise InputError(f"chosen: site indices must lie in 0..{m - 1}")
+    v_off = notes["offroad_speed_kmh"] / 3.6
+    cap = notes["max_snap_m"]
+    from .areas import _as_clip
+
+    area = _as_clip(clip)
+    out = []
+    fr = np.linspace(0.0, 1.0, steps + 1)
+    for j in idx:
+        if not ssnap.snapped[j] or ssnap.distance[j] / v_off > limit:
+            out.append(shapely.Polygon())
+            continue
+        budget = limit - ssnap.distance[j] / v_off
+        sel = np.array([j])
+        graph = _source_graph(net, ssnap, sel)
+        times = dijkstra(graph, directed=True, indices=net.n_nodes, limit=budget)[: net.n_nodes]
+        # reach along each segment from u (fraction fu of it) and from v (fraction fv)
+        pu = times[net.seg_u] + net.penalty(net.seg_u)
+        pv = times[net.seg_v] + net.penalty(net.seg_v)
+        fu = np.where(net.forward, np.clip((budget - pu) / net.seg_time, 0.0, 1.0), 0.0)
+        fv = np.where(net.backward, np.clip((budget - pv) / net.seg_time, 0.0, 1.0), 0.0)
+        fu[~np.isfinite(fu)] = 0.0
+        fv[~np.isfinite(fv)] = 0.0
+        seg_j, ts = int(ssnap.segment[j]), float(ssnap.t[j])
+        pieces: list[tuple[int, float, float]] = []  # segment, from fraction, to fraction
+        for seg in np.flatnonzero((fu > 0) | (fv > 0)):
+            if fu[seg] + fv[seg] >= 1.0:
+                pieces.append((int(seg), 0.0, 1.0))
+            else:
+                if fu[seg] > 0:
+                    pieces.append((int(seg), 0.0, float(fu[seg])))
+                if fv[seg] > 0:
+                    pieces.append((int(seg), 1.0 - float(fv[seg]), 1.0))
+        full_j = float(net.seg_time[seg_j])
+        if net.forward[seg_j]:
+            pieces.append((seg_j, ts, min(1.0, ts + budget / full_j)))
+        if net.backward[seg_j]:
+            pieces.append((seg_j, max(0.0, ts - budget / full_j), ts))
+        p = np.array(pieces, dtype=np.float64)
+        segs = p[:, 0].astype(np.int64)
+        f = p[:, 1:2] + (p[:, 2:3] - p[:, 1:2]) * fr[None, :]  # (pieces, steps + 1) fractions
+        full = net.seg_time[segs][:, None]
+        with np.errstate(invalid="ignore"):
+            rem = np.maximum(
+                np.where(net.forward[segs][:, None], budget - pu[segs][:, None] - f * full, -np.inf),
+                np.where(net.backward[segs][:, None], budget - pv[segs][:, None] - (1.0 - f) * full, -np.inf),
+            )
+            own = segs == seg_j
+            direct = np.where(
+                (f >= ts) & net.forward[seg_j], budget - (f - ts) * full_j,
+                np.where((f <= ts) & net.backward[seg_j], budget - (ts - f) * full_j, -np.inf),
+            )
+        rem = np.where(own[:, None], np.maximum(rem, direct), rem)
+        rem = np.nan_to_num(rem, nan=0.0, neginf=0.0)
+        radius = np.clip(np.minimum(rem[:, :-1], rem[:, 1:]) * v_off, 0.0, cap).ravel()
+        a, b = net.node_xy[net.seg_u[segs]], net.node_xy[net.seg_v[segs]]
+        start = (a[:, None, :] + f[:, :-1, None] * (b - a)[:, None, :]).reshape(-1, 2)
+        end = (a[:, None, :] + f[:, 1:, None] * (b - a)[:, None, :]).reshape(-1, 2)
+        lines = shapely.linestrings(np.stack([start, end], axis=1))
+        polys = shapely.buffer(lines, np.maximum(radius, 0.5), quad_segs=4)
+        geom = shapely.union_all(polys)
+        if area is not None:
+            geom = shapely.intersection(geom, area)
+        out.append(geom)
+    return np.asarray(out, dtype=object)
