@@ -59,6 +59,7 @@ class ReportData:
     inputs: list[dict[str, Any]]
     notes: list[str] = field(default_factory=list)
     tradeoff: list[dict[str, Any]] = field(default_factory=list)
+    tradeoff_marks: dict[str, Any] = field(default_factory=dict)
     # map content (working CRS)
     demand_xy: np.ndarray | None = None
     demand_weight: np.ndarray | None = None
@@ -144,8 +145,8 @@ def map_png(data: ReportData) -> str:
         _draw_polygons(ax, data.service_areas, facecolor=PALETTE["service"], alpha=0.12, edgecolor=PALETTE["service"], linewidth=0.8, zorder=3)
         handles.append(Patch(facecolor=PALETTE["service"], alpha=0.3, edgecolor=PALETTE["service"], label="service areas"))
     for xy, key, label, size in (
-        (data.unreachable_xy, "unreachable", "people no site can reach", 4),
-        (data.left_out_xy, "left_out", "people the plan leaves out", 4),
+        (data.unreachable_xy, "unreachable", "people no site can reach", 3),
+        (data.left_out_xy, "left_out", "people the plan leaves out", 0.6),
     ):
         if xy is not None and len(xy):
             ax.scatter(xy[:, 0], xy[:, 1], s=size, color=PALETTE[key], linewidths=0, zorder=4)
@@ -180,18 +181,25 @@ def tradeoff_png(points: list[dict[str, Any]]) -> str:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    p = np.array([row["sites"] for row in points], dtype=float)
-    share = np.array([row["share"] for row in points], dtype=float) * 100
+    curve = [row for row in points if "end point" not in str(row.get("status"))]
+    ends = [row for row in points if "end point" in str(row.get("status"))]
+    p = np.array([row["p"] for row in curve], dtype=float)
+    share = np.array([row["share"] for row in curve], dtype=float) * 100
     fig, ax = plt.subplots(figsize=(7, 4))
     ax.set_facecolor(PALETTE["paper"])
-    ax.plot(p, share, marker="o", color=PALETTE["service"], linewidth=2)
-    for row in points:
+    ax.plot(p, share, marker="o", color=PALETTE["service"], linewidth=2, label="most people served with p new sites")
+    for row in curve:
         if row.get("status") not in (None, "optimal"):
-            ax.annotate("gap", (row["sites"], row["share"] * 100), textcoords="offset points", xytext=(0, 6), fontsize=7)
+            ax.annotate(f"gap {100 * row.get('gap', 0):.1f} %", (row["p"], row["share"] * 100),
+                        textcoords="offset points", xytext=(0, 6), fontsize=7)
+    for row in ends:
+        ax.scatter([row["p"]], [row["share"] * 100], marker="*", s=160, color=PALETTE["chosen"], zorder=5,
+                   label=f"everyone coverable served: {row['p']} sites")
+    ax.legend(loc="lower right", fontsize=8)
     for level in (80, 90, 95, 99):
         ax.axhline(level, color="#b9b3a5", linewidth=0.6, linestyle="--")
     ax.set_xlabel("number of sites")
-    ax.set_ylabel("share of people covered (%)")
+    ax.set_ylabel("share of coverable people served (%)")
     ax.set_ylim(0, 101)
     ax.grid(alpha=0.3)
     return _png(fig)
@@ -256,6 +264,9 @@ def render_report(data: ReportData) -> str:
             "<h2>Trade-off: people covered against number of sites</h2>",
             f"<img alt='trade-off chart' src='data:image/png;base64,{tradeoff_png(data.tradeoff)}'>",
             _table(data.tradeoff),
+            "<p class='muted'>Smallest number of new sites that reaches each level of the coverable people "
+            "(proven: every smaller number has a bound below the level):</p>",
+            _table([{"level": k, "new sites": v[0], "proven smallest": v[1]} for k, v in data.tradeoff_marks.items()]),
         ]
     parts += [
         "<h2>Sites in the plan</h2>",

@@ -207,12 +207,39 @@ def solve(p: Mapping[str, Any], kind: ModelKind, reach: Reach, run: RunContext) 
     return models.cover_twice(reach, sites=p["sites"], first_floor=p["first_floor"], **opts)
 
 
-def tradeoff_rows(p: Mapping[str, Any], reach: Reach, max_sites: int) -> list[dict[str, Any]]:
-    """The trade-off curve as plain rows (sites, people covered, share, bound, gap, status)."""
+def compute_tradeoff(p: Mapping[str, Any], reach: Reach, max_sites: int) -> Any:
+    """The trade-off curve (a :class:`geocover.models.Tradeoff`)."""
     from .. import models
 
-    curve = models.tradeoff(reach, max_sites, **_solver_options(p))
-    return curve.rows()
+    return models.tradeoff(reach, max_sites, **_solver_options(p))
+
+
+def tradeoff_rows(curve: Any, reach: Reach) -> list[dict[str, Any]]:
+    """The curve as plain rows, the LSCP end point last (``p`` counts new sites, as on the curve)."""
+    if curve is None:
+        return []
+    rows = curve.rows()
+    if curve.lscp is not None:
+        lscp = curve.lscp
+        coverable = curve.coverable_weight or 1.0
+        new_sites = int((reach.role[lscp.sites] == SiteRole.CANDIDATE).sum())
+        rows.append({"p": new_sites, "covered": lscp.covered_weight, "share": lscp.covered_weight / coverable,
+                     "bound": float("nan"), "gap": lscp.gap, "status": f"{lscp.status.value} (cover-all end point)"})
+    return rows
+
+
+def tradeoff_marks(curve: Any) -> dict[str, Any]:
+    """Smallest number of new sites reaching each coverage level, and whether it is proven smallest.
+
+    A level no point of the curve reaches reads ``"more than P"``.
+    """
+    if curve is None:
+        return {}
+    top = int(curve.p.max()) if len(curve.p) else 0
+    return {
+        f"{round(level * 100)} %": (f"more than {top}" if p is None else int(p), bool(curve.marks_exact.get(level, False)))
+        for level, p in curve.marks.items()
+    }
 
 
 # ----------------------------------------------------------------------------- the whole study
@@ -233,7 +260,7 @@ class StudyOutcome:
     plan: Plan
     today: dict[str, float]
     audit: dict[str, Any] | None
-    curve: list[dict[str, Any]]
+    curve: Any  # a geocover.models.Tradeoff, or None
     service_polygons: list[Any]
     study_area: Any
     exclusion_geoms: list[Any]
@@ -287,7 +314,7 @@ def _finish(
     run: RunContext,
     prepared: tuple[Demand, Sites, ScreeningRecord, Reach],
     plan: Plan,
-    curve: list[dict[str, Any]],
+    curve: Any,
 ) -> StudyOutcome:
     from ..areas import service_areas
     from ..evaluate import audit, coverage_of, existing_sites
@@ -343,10 +370,10 @@ def run_pipeline(
     mp = sections["model"]
     with run.step("solving"):
         plan = solve(mp, kind, reach, run)
-    curve: list[dict[str, Any]] = []
+    curve = None
     if mp.get("tradeoff"):
         with run.step("trade-off curve"):
-            curve = tradeoff_rows(mp, reach, int(mp["tradeoff"]))
+            curve = compute_tradeoff(mp, reach, int(mp["tradeoff"]))
     return _finish(sections, kind.value, title, run, prepared, plan, curve)
 
 
@@ -357,7 +384,7 @@ def evaluate_given_sites(sections: Mapping[str, Mapping[str, Any]], run: RunCont
     prepared = _prepare(sections, run)
     reach = prepared[3]
     plan = plan_from_sites(reach, np.arange(reach.shape[1]), model="audit")
-    return _finish(sections, "audit", title, run, prepared, plan, [])
+    return _finish(sections, "audit", title, run, prepared, plan, None)
 
 
 # ----------------------------------------------------------------------------- writing
@@ -457,7 +484,8 @@ def build_manifest(outcome: StudyOutcome, run: RunContext, outputs: Mapping[str,
         "people": people_totals(outcome),
         "today": outcome.today,
         "audit": jsonable(outcome.audit),
-        "tradeoff": jsonable(outcome.curve),
+        "tradeoff": jsonable(tradeoff_rows(outcome.curve, outcome.reach)),
+        "tradeoff_marks": jsonable(tradeoff_marks(outcome.curve)),
         "outputs": {k: Path(v).name for k, v in outputs.items()},
         "versions": show_versions(),
         "timings_s": dict(run.timings),
@@ -487,9 +515,9 @@ def report_data(outcome: StudyOutcome) -> Any:
     planned = coverage_of(reach, plan.sites)
     today_vs_plan = [
         {"": "today (existing facilities)", "sites": outcome.today["sites"], "people covered": outcome.today["covered"],
-         "share of people": outcome.today["share_of_total"]},
+         "share of people": f"{100 * outcome.today['share_of_total']:.1f} %"},
         {"": "with the plan", "sites": planned["sites"], "people covered": planned["covered"],
-         "share of people": planned["share_of_total"]},
+         "share of people": f"{100 * planned['share_of_total']:.1f} %"},
     ]
     status = demand_status(reach, plan)
     demand = outcome.demand
@@ -499,12 +527,12 @@ def report_data(outcome: StudyOutcome) -> Any:
         "of which existing": int(np.isin(plan.sites, existing).sum()),
         "people in the study": plan.total_weight,
         "people covered": plan.covered_weight,
-        "share covered": plan.covered_weight / plan.total_weight if plan.total_weight else 0.0,
+        "share covered": f"{100 * plan.covered_weight / plan.total_weight:.1f} %" if plan.total_weight else "-",
         "people no site can reach": plan.uncoverable_weight,
         "people the plan leaves out": plan.left_out_weight,
         "objective": plan.objective,
         "proven bound": plan.bound,
-        "gap": plan.gap,
+        "gap": f"{100 * plan.gap:.2f} %",
         "solver status": plan.status.value,
         "solver": plan.solver,
         "solve seconds": plan.seconds,
@@ -524,7 +552,8 @@ def report_data(outcome: StudyOutcome) -> Any:
         parameters={f"{sec}.{k}": jsonable(v) for sec, vals in outcome.params.items() for k, v in vals.items() if v not in (None, ())},
         inputs=[{"file": Path(i["path"]).name, "bytes": i["bytes"], "sha256": i["sha256"][:16] + "..."} for i in inputs_manifest(outcome.params)],
         notes=list(outcome.notes) + list(plan.log),
-        tradeoff=outcome.curve,
+        tradeoff=tradeoff_rows(outcome.curve, outcome.reach),
+        tradeoff_marks=tradeoff_marks(outcome.curve),
         demand_xy=demand.xy,
         demand_weight=demand.weight,
         demand_cell_m=cell,
