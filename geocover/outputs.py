@@ -211,6 +211,7 @@ def screened_sites_layer(record: ScreeningRecord, plan: Plan | None = None) -> "
         "rejected_by_layer": record.layer.astype(str),
         "rejected_by_feature": record.feature,
         "nearest_exclusion_m": np.where(np.isfinite(record.nearest_exclusion_m), record.nearest_exclusion_m, np.nan),
+        "land_use_share": record.land_use_share,
         "site_index": record.site_index,
         "chosen": chosen,
     }

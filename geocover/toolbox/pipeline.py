@@ -337,7 +337,7 @@ def _finish(
     with run.step("service areas"):
         service_polygons = list(service_areas(reach, plan.sites, clip=study_area))
     exclusion_geoms = _exclusion_geometries(sp_.get("exclude"), demand.crs)
-    notes = [str(n) for n in demand.summary.get("notes", [])]
+    notes = [str(n) for n in demand.summary.get("notes", [])] + [str(n) for n in record.notes]
     return StudyOutcome(
         title=title,
         kind=kind,
