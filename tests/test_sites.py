@@ -25,10 +25,10 @@ CRS = "EPSG:32626"
 X0, Y0 = 500_000.0, 4_000_000.0  # somewhere in UTM zone 26N
 
 
-@pytest.fixture()
-def world(tmp_path):
-    """A tiny GeoPackage: candidate points and parcels, flood zones, protected land, existing stations."""
-    path = tmp_path / "world.gpkg"
+@pytest.fixture(scope="module")
+def world(tmp_path_factory):
+    """A tiny GeoPackage: candidate points and parcels, flood zones, protected land, existing stations (read only)."""
+    path = tmp_path_factory.mktemp("world") / "world.gpkg"
     xs, ys = np.meshgrid(np.arange(0, 2000, 100.0), np.arange(0, 1000, 100.0))
     points = gpd.GeoDataFrame(
         {"name": [f"p{i}" for i in range(xs.size)], "cost": np.linspace(1, 3, xs.size)},
@@ -261,6 +261,14 @@ def test_nearest_exclusion_matches_brute_force(world):
     ])
     brute = shapely.distance(pts[:, None], zones[None, :]).min(axis=1)
     np.testing.assert_allclose(record.nearest_exclusion_m, brute, rtol=0, atol=1e-9)
+    # parcels: the distance is from the whole footprint
+    _, parcels = screen_sites(
+        f"{world}:candidate_parcels",
+        exclude=[Exclusion(f"{world}:flood_zones", setback_m=15), Exclusion(f"{world}:protected_land")],
+    )
+    shapes = np.asarray(gpd.read_file(world, layer="candidate_parcels").geometry.array)
+    brute = shapely.distance(shapes[:, None], zones[None, :]).min(axis=1)
+    np.testing.assert_allclose(parcels.nearest_exclusion_m, brute, rtol=0, atol=1e-9)
     _, none = screen_sites(f"{world}:candidate_points")
     assert np.isinf(none.nearest_exclusion_m).all()
 
