@@ -732,8 +732,9 @@ def screen_sites(
         rejected as ``outside``.  A bare shapely geometry is taken to be in
         the working CRS.
     min_spacing_m : float or str, optional
-        Pairs of sites closer than this go to ``Sites.close_pairs`` (pairs of
-        two kept facilities are left out: both are open anyway).
+        Pairs of sites closer than this go to ``Sites.close_pairs``.  Spacing
+        is a rule for new sites: pairs of two existing facilities are left
+        out (a pair with an optional one would force a closure).
     label_field : str, optional
         Field with site names (candidates must have it; existing facilities
         use it when present).
@@ -759,6 +760,14 @@ def screen_sites(
 
     notes: list[str] = []
     rules = [exclude] if isinstance(exclude, Exclusion) else list(exclude)
+    names = [str(getattr(rule, "name", "")) for rule in rules]
+    for name in names:
+        if names.count(name) > 1:
+            raise ParameterError(
+                f"exclude: {names.count(name)} exclusion layers are named {name!r}; give each its own "
+                "name=... so that verdicts say which one rejected a site",
+                "exclude",
+            )
     for rule in rules:
         if not isinstance(rule, Exclusion):
             raise ParameterError(f"exclude: expected Exclusion(...) items, got {type(rule).__name__}", "exclude")
@@ -774,6 +783,8 @@ def screen_sites(
     cand = _reproject(cand, working, "candidates", notes)
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=True)
+    if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
+        label_field = "label"  # lattice points carry their own row/column labels
     cand_label = _labels(cand, label_field, "candidate", cand_ids, "candidates layer", required=True)
     cand_loc = _locate(cand, "candidates", notes)
 
@@ -884,11 +895,14 @@ def screen_sites(
     pairs = np.zeros((0, 2), dtype=np.int64)
     if spacing:
         pairs = close_pairs(xy[take], spacing)
-        both_kept = (roles[pairs[:, 0]] == SiteRole.KEPT) & (roles[pairs[:, 1]] == SiteRole.KEPT)
-        if both_kept.any():
-            notes.append(f"minimum spacing: {int(both_kept.sum())} pair(s) of kept existing sites are closer than "
-                         f"{spacing:g} m; they stay open and are not a constraint")
-            pairs = pairs[~both_kept]
+        # spacing is a rule for new sites: two existing facilities are never a pair (it would force a closure)
+        both_existing = (pairs[:, 0] < k) & (pairs[:, 1] < k)
+        if both_existing.any():
+            notes.append(
+                f"minimum spacing: {int(both_existing.sum())} pair(s) of existing sites are closer than "
+                f"{spacing:g} m; spacing applies to new sites only, so they are not a constraint"
+            )
+            pairs = pairs[~both_existing]
     label = np.concatenate([ex_label, cand_label])
     working_label = crs_label(working)
     sites = Sites(

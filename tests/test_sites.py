@@ -284,13 +284,26 @@ def test_close_pairs_match_all_pairwise_distances():
     assert pairs.dtype == np.int64 and pairs.shape[1] == 2
 
 
-def test_min_spacing_pairs_go_to_sites_but_not_between_two_kept_sites():
-    existing = gpd.GeoDataFrame(geometry=[Point(0, 0), Point(10, 0)], crs=CRS)
-    cands = gpd.GeoDataFrame(geometry=[Point(20, 0), Point(500, 0), Point(505, 0)], crs=CRS)
-    sites, record = screen_sites(cands, existing=existing, min_spacing_m="15 m")
-    # (0, 1) are both kept existing sites: no constraint; (1, 2) kept-candidate; (3, 4) candidates
-    assert sites.close_pairs.tolist() == [[1, 2], [3, 4]]
-    assert any("kept existing sites are closer" in n for n in record.notes)
+def test_min_spacing_pairs_go_to_sites_but_not_between_two_existing_sites():
+    existing = gpd.GeoDataFrame({"status": ["kept", "optional", "kept"]},
+                                geometry=[Point(0, 0), Point(10, 0), Point(13, 0)], crs=CRS)
+    cands = gpd.GeoDataFrame(geometry=[Point(24, 0), Point(500, 0), Point(505, 0)], crs=CRS)
+    sites, record = screen_sites(cands, existing=existing, existing_role_field="status", min_spacing_m="15 m")
+    # pairs among the existing sites 0, 1, 2 are no constraint; (1, 3) optional-candidate, (2, 3) kept-candidate
+    # and (4, 5) two candidates are
+    assert sites.close_pairs.tolist() == [[1, 3], [2, 3], [4, 5]]
+    assert any("3 pair(s) of existing sites are closer" in n for n in record.notes)
+
+
+def test_lattice_labels_and_duplicate_exclusion_names():
+    from geocover.sites import lattice_candidates
+
+    lattice = lattice_candidates(box(0, 0, 300, 200), 100, crs=CRS)
+    sites, _ = screen_sites(lattice)
+    assert sites.label.tolist()[:3] == ["L0_0", "L0_1", "L0_2"]
+    zone = gpd.GeoDataFrame(geometry=[box(0, 0, 10, 10)], crs=CRS)
+    with pytest.raises(ParameterError, match="2 exclusion layers are named 'exclusion'"):
+        screen_sites(lattice, exclude=[Exclusion(zone), Exclusion(zone)])
 
 
 def test_summary_counts_per_rule(world):
