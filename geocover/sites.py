@@ -732,9 +732,10 @@ def screen_sites(
         rejected as ``outside``.  A bare shapely geometry is taken to be in
         the working CRS.
     min_spacing_m : float or str, optional
-        Pairs of sites closer than this go to ``Sites.close_pairs``.  Spacing
-        is a rule for new sites: pairs of two existing facilities are left
-        out (a pair with an optional one would force a closure).
+        Pairs of sites closer than this go to ``Sites.close_pairs``: the
+        models open at most one of each pair.  Pairs of two kept facilities
+        are left out (both are open anyway); a kept-optional pair stays, so
+        an optional facility too close to a kept one is closed.
     label_field : str, optional
         Field with site names (candidates must have it; existing facilities
         use it when present).
@@ -895,14 +896,14 @@ def screen_sites(
     pairs = np.zeros((0, 2), dtype=np.int64)
     if spacing:
         pairs = close_pairs(xy[take], spacing)
-        # spacing is a rule for new sites: two existing facilities are never a pair (it would force a closure)
-        both_existing = (pairs[:, 0] < k) & (pairs[:, 1] < k)
-        if both_existing.any():
+        # two kept sites are open whatever the model does: such a pair could only make it infeasible
+        both_kept = (roles[pairs[:, 0]] == SiteRole.KEPT) & (roles[pairs[:, 1]] == SiteRole.KEPT)
+        if both_kept.any():
             notes.append(
-                f"minimum spacing: {int(both_existing.sum())} pair(s) of existing sites are closer than "
-                f"{spacing:g} m; spacing applies to new sites only, so they are not a constraint"
+                f"minimum spacing: {int(both_kept.sum())} pair(s) of kept existing sites are closer than "
+                f"{spacing:g} m; both stay open, so they are not a constraint"
             )
-            pairs = pairs[~both_existing]
+            pairs = pairs[~both_kept]
     label = np.concatenate([ex_label, cand_label])
     working_label = crs_label(working)
     sites = Sites(

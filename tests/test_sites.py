@@ -284,15 +284,15 @@ def test_close_pairs_match_all_pairwise_distances():
     assert pairs.dtype == np.int64 and pairs.shape[1] == 2
 
 
-def test_min_spacing_pairs_go_to_sites_but_not_between_two_existing_sites():
+def test_min_spacing_pairs_go_to_sites_but_not_between_two_kept_sites():
     existing = gpd.GeoDataFrame({"status": ["kept", "optional", "kept"]},
                                 geometry=[Point(0, 0), Point(10, 0), Point(13, 0)], crs=CRS)
     cands = gpd.GeoDataFrame(geometry=[Point(24, 0), Point(500, 0), Point(505, 0)], crs=CRS)
     sites, record = screen_sites(cands, existing=existing, existing_role_field="status", min_spacing_m="15 m")
-    # pairs among the existing sites 0, 1, 2 are no constraint; (1, 3) optional-candidate, (2, 3) kept-candidate
-    # and (4, 5) two candidates are
-    assert sites.close_pairs.tolist() == [[1, 3], [2, 3], [4, 5]]
-    assert any("3 pair(s) of existing sites are closer" in n for n in record.notes)
+    # closer than 15 m: (0, 1) 10 m, (0, 2) 13 m, (1, 2) 3 m, (1, 3) 14 m, (2, 3) 11 m, (4, 5) 5 m.
+    # (0, 2) are both kept, so no constraint; kept-optional, optional/kept-candidate and candidate pairs are
+    assert sites.close_pairs.tolist() == [[0, 1], [1, 2], [1, 3], [2, 3], [4, 5]]
+    assert any("1 pair(s) of kept existing sites are closer" in n for n in record.notes)
 
 
 def test_lattice_labels_and_duplicate_exclusion_names():
