@@ -700,15 +700,17 @@ def screen_sites(
     study_area: Any = None,
     min_spacing_m: float | None = None,
     label_field: str | None = None,
+    existing_label_field: str | None = None,
     crs: Any = None,
 ) -> tuple[Sites, ScreeningRecord]:
     """Screen candidate sites and return the usable ones with a verdict for every one.
 
     Parameters
     ----------
-    candidates : path, "path:layer", LayerRef or GeoDataFrame
+    candidates : path, "path:layer", LayerRef, GeoDataFrame or None
         Candidate points, or parcel polygons (a parcel stands at a point
-        inside it, and its whole footprint is screened).
+        inside it, and its whole footprint is screened).  ``None`` with
+        ``existing`` given screens today's facilities only (for an audit).
     exclude : Exclusion or sequence of Exclusion
         Exclusion-zone layers with setbacks and filters, tried in order.
     land_use : LandUseMask, optional
@@ -738,7 +740,9 @@ def screen_sites(
         an optional facility too close to a kept one is closed.
     label_field : str, optional
         Field with site names (candidates must have it; existing facilities
-        use it when present).
+        use it when present and ``existing_label_field`` is not given).
+    existing_label_field : str, optional
+        Field with the existing facilities' names (they must have it).
     crs : CRS-like, optional
         Working CRS (projected, metres).  Default: the candidates' CRS when
         it is projected in metres, else a local UTM zone.
@@ -779,14 +783,21 @@ def screen_sites(
         raise ParameterError(f"default_cost: must be 0 or more, got {default_cost!r}", "default_cost")
     spacing = None if min_spacing_m is None else parse_distance(min_spacing_m, param="min_spacing_m")
 
-    cand, cand_name = _read(candidates, "candidates", allow_empty=existing is not None)
+    only_existing = candidates is None
+    if only_existing:
+        if existing is None:
+            raise ParameterError("candidates: give candidate sites, existing facilities, or both", "candidates")
+        cand, _ = _read(existing, "existing sites", allow_empty=True)
+        cand, cand_name = cand.iloc[0:0].copy(), "candidates"
+    else:
+        cand, cand_name = _read(candidates, "candidates", allow_empty=existing is not None)
     working = _working_crs(crs, cand)
     cand = _reproject(cand, working, "candidates", notes)
     cand_ids = _feature_ids(cand)
-    cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=True)
+    cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
     if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
         label_field = "label"  # lattice points carry their own row/column labels
-    cand_label = _labels(cand, label_field, "candidate", cand_ids, "candidates layer", required=True)
+    cand_label = _labels(cand, label_field, "candidate", cand_ids, "candidates layer", required=not only_existing)
     cand_loc = _locate(cand, "candidates", notes)
 
     if existing is not None:
@@ -794,7 +805,10 @@ def screen_sites(
         ex = _reproject(ex, working, "existing sites", notes)
         ex_ids = _feature_ids(ex)
         ex_cost = _costs(ex, cost_field, 0.0, "existing sites layer", notes, required=False)
-        ex_label = _labels(ex, label_field, "existing", ex_ids, "existing sites layer", required=False)
+        if existing_label_field is not None:
+            ex_label = _labels(ex, existing_label_field, "existing", ex_ids, "existing sites layer", required=True)
+        else:
+            ex_label = _labels(ex, label_field, "existing", ex_ids, "existing sites layer", required=False)
         ex_role = _roles(ex, existing_role_field, default_role, notes)
         ex_loc = _locate(ex, "existing sites", notes)
         bad = np.flatnonzero(ex_loc.invalid != "")

@@ -156,6 +156,7 @@ def load_sites(p: Mapping[str, Any], crs: Any, run: RunContext) -> tuple[Sites, 
         study_area=p.get("study_area"),
         min_spacing_m=p.get("min_spacing"),
         label_field=p.get("label_field"),
+        existing_label_field=p.get("existing_label_field"),
         crs=crs,
     )
 
