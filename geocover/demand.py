@@ -335,6 +335,7 @@ def demand_from_grid(
 
         # float64 copies only when values change; a plain float32 count grid is masked in place
         need_f64 = scaled or values is GridValues.DENSITY_KM2 or clip_geom is not None or factor > 1
+        can_be_bad = is_float or scaled or np.issubdtype(np.dtype(src.dtypes[bidx - 1]), np.signedinteger)
         const_fp = None
         if same_crs and factor == 1:
             const_fp = half_diagonal(transform, 1)
@@ -346,36 +347,44 @@ def demand_from_grid(
         cells_nodata = 0
         cells_bad = 0
         first_bad: tuple[int, int] | None = None
-        cells_zero = 0
 
+        # one read buffer for all windows: fresh memory is slow to touch, reused memory is not
+        buffer = np.empty((min(wrows, height), width), dtype=src.dtypes[bidx - 1])
         for row_off in range(0, height, wrows):
             h = min(wrows, height - row_off)
             win = Window(0, row_off, width, h)
-            raw = src.read(bidx, window=win)
-            valid = None
+            raw = src.read(bidx, window=win, out=buffer[:h])
+            nod = None
             if use_mask:
-                valid = src.read_masks(bidx, window=win) > 0
+                nod = src.read_masks(bidx, window=win) == 0
             elif nodata is not None:
-                valid = ~np.isnan(raw) if (is_float and math.isnan(nodata)) else raw != nodata
+                nod = np.isnan(raw) if (is_float and math.isnan(nodata)) else raw == nodata
             counts = raw.astype(np.float64) if (need_f64 and raw.dtype != np.float64) else raw
             if scaled:
                 counts = counts * (1.0 if scale is None else scale) + (0.0 if offset is None else offset)
-            if valid is not None:
-                cells_nodata += int(valid.size - np.count_nonzero(valid))
-                counts[~valid] = 0.0
-            if is_float or scaled:
-                bad = ~np.isfinite(counts)
-                bad |= counts < 0
-            else:
-                bad = counts < 0 if np.issubdtype(raw.dtype, np.signedinteger) else None
-            if bad is not None:
-                nbad = int(np.count_nonzero(bad))
-                if nbad:
+            if nod is not None:
+                n_nod = int(np.count_nonzero(nod))
+                if n_nod:
+                    cells_nodata += n_nod
+                    np.copyto(counts, 0, where=nod)
+                del nod
+            total = None
+            if can_be_bad:
+                # two reductions without temporaries tell a clean window: min >= 0 (NaN propagates) and a finite sum
+                lowest = counts.min() if counts.size else 0
+                total = float(counts.sum(dtype=np.float64)) if lowest >= 0 else math.nan
+                if not math.isfinite(total):
+                    bad = ~(counts >= 0)  # negative or NaN
+                    if is_float or scaled:
+                        bad |= np.isinf(counts)
+                    nbad = int(np.count_nonzero(bad))
                     if first_bad is None:
                         r, c = np.argwhere(bad)[0]
                         first_bad = (row_off + int(r), int(c))
                     cells_bad += nbad
-                    counts[bad] = 0.0
+                    np.copyto(counts, 0, where=bad)
+                    total = None
+                    del bad
             if cells_bad and bad_values is BadValues.ERROR:
                 continue  # keep counting the bad cells for the error message
             if values is GridValues.DENSITY_KM2:
@@ -384,7 +393,7 @@ def demand_from_grid(
                     counts *= (geographic_row_areas(transform, rows, *ellipsoid) / 1e6)[:, None]
                 else:
                     counts *= area_km2_const
-            strip_total = float(counts.sum(dtype=np.float64))
+            strip_total = float(counts.sum(dtype=np.float64)) if (total is None or values is GridValues.DENSITY_KM2) else total
             people_in += strip_total
             if clip_geom is not None:
                 import shapely
@@ -397,21 +406,26 @@ def demand_from_grid(
                 cells_clip_out += int(np.count_nonzero((counts > 0) & (share < 1.0)))
                 people_clip_out += out_people
                 counts = kept
-            cells_zero += int(counts.size - np.count_nonzero(counts > 0))
+            if const_fp is not None:
+                # plain cells in the grid's own CRS: keep only the window-flat index and the value
+                # (8 bytes a cell); centres are computed straight into the output at the end
+                flat = np.flatnonzero(counts > 0)
+                if len(flat):
+                    index_type = np.int32 if counts.size < 2**31 else np.int64
+                    chunks.append(("cells", row_off, flat.astype(index_type), counts.reshape(-1)[flat]))
+                del flat
+                continue
             pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
             if len(pts) == 0:
                 continue
             x, y = pts.x, pts.y
-            if const_fp is not None:
-                fp = np.full(len(pts), const_fp)
-            else:
-                cx, cy = block_corners(transform, pts.row0, pts.col0, factor)
-                if transformer is not None:
-                    x, y = transformer.transform(x, y)
-                    cx, cy = transformer.transform(cx, cy)
-                    x, y, cx, cy = (np.asarray(v, dtype=np.float64) for v in (x, y, cx, cy))
-                fp = farthest_corner(x, y, cx, cy)
-            chunks.append((x, y, pts.weight, pts.unit, fp))
+            cx, cy = block_corners(transform, pts.row0, pts.col0, factor)
+            if transformer is not None:
+                x, y = transformer.transform(x, y)
+                cx, cy = transformer.transform(cx, cy)
+                x, y, cx, cy = (np.asarray(v, dtype=np.float64) for v in (x, y, cx, cy))
+            fp = farthest_corner(x, y, cx, cy)
+            chunks.append(("points", x, y, pts.weight, pts.unit, fp))
 
         if cells_bad and bad_values is BadValues.ERROR:
             r, c = first_bad  # type: ignore[misc]
@@ -424,7 +438,7 @@ def demand_from_grid(
         if cells_bad:
             notes.append(f"counted {cells_bad} negative or non-finite cell(s) as zero (bad_values='zero')")
 
-    xy, weight, unit, footprint = _assemble(chunks)
+    xy, weight, unit, footprint = _assemble(chunks, transform, width, const_fp)
     people_out = float(weight.sum())
     dropped: dict[str, dict[str, Any]] = {}
     if cells_nodata:
@@ -448,7 +462,6 @@ def demand_from_grid(
         "people_out": people_out,
         "points": int(len(weight)),
         "dropped": dropped,
-        "cells_empty": cells_zero,
         "balance": people_in - people_out - sum(d["people"] for d in dropped.values()),
         "seconds": round(time.perf_counter() - started, 3),
         "notes": notes,
@@ -463,28 +476,41 @@ def _window_box(wt: Any, h: int, w: int) -> tuple[float, float, float, float]:
     return float(xs.min()), float(ys.min()), float(xs.max()), float(ys.max())
 
 
-def _assemble(chunks: list[tuple[np.ndarray, ...]]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Concatenate per-window arrays into the output, freeing each window's arrays as it is copied.
+def _assemble(
+    chunks: list[tuple[Any, ...]], transform: Any, width: int, const_fp: float | None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Write the per-window results into the output arrays, freeing each window's arrays as it is copied.
 
-    Peak memory is the output plus one window, not twice the output.
+    Peak memory is the output plus the compact per-window records, not twice the output.
     """
-    n = sum(len(ch[2]) for ch in chunks)
+    from .grid import cell_centres
+
+    n = sum(len(ch[3]) for ch in chunks)
     xy = np.empty((n, 2), dtype=np.float64)
     weight = np.empty(n, dtype=np.float64)
     unit = np.empty(n, dtype=np.int64)
-    footprint = np.empty(n, dtype=np.float64)
+    footprint = np.full(n, const_fp) if const_fp is not None else np.empty(n, dtype=np.float64)
     pos = 0
     chunks.reverse()
     while chunks:
-        x, y, w, u, fp = chunks.pop()
-        k = len(w)
-        xy[pos : pos + k, 0] = x
-        xy[pos : pos + k, 1] = y
-        weight[pos : pos + k] = w
-        unit[pos : pos + k] = u
-        footprint[pos : pos + k] = fp
+        chunk = chunks.pop()
+        if chunk[0] == "cells":
+            _, row_off, flat, w = chunk
+            k = len(w)
+            u = unit[pos : pos + k]
+            np.add(flat, row_off * width, out=u, dtype=np.int64, casting="unsafe")
+            cell_centres(u, transform, width, out=xy[pos : pos + k])
+            weight[pos : pos + k] = w
+        else:
+            _, x, y, w, u, fp = chunk
+            k = len(w)
+            xy[pos : pos + k, 0] = x
+            xy[pos : pos + k, 1] = y
+            weight[pos : pos + k] = w
+            unit[pos : pos + k] = u
+            footprint[pos : pos + k] = fp
         pos += k
-        del x, y, w, u, fp
+        del chunk
     return xy, weight, unit, footprint
 
 

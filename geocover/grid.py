@@ -32,6 +32,7 @@ __all__ = [
     "block_sums",
     "block_points",
     "apply_affine",
+    "cell_centres",
     "block_corners",
     "farthest_corner",
     "half_diagonal",
@@ -132,15 +133,23 @@ def block_points(
     """
     counts = np.asarray(counts)
     a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
+    h, w = counts.shape
     if factor == 1:
         flat = np.flatnonzero(counts > 0)
-        h, w = counts.shape
-        r, cc = np.divmod(flat, w)
-        row0 = r + row_off
-        col0 = cc + col_off
+        weight = counts.reshape(-1)[flat].astype(np.float64, copy=False)
+        row0, col0 = np.divmod(flat, w)
+        if row_off:
+            row0 += row_off
+        if col_off:
+            col0 += col_off
+        if w == grid_width and col_off == 0:
+            unit = flat
+            if row_off:
+                unit += row_off * grid_width
+        else:
+            unit = row0 * int(grid_width) + col0
         pr = row0 + 0.5
         pc = col0 + 0.5
-        weight = counts.reshape(-1)[flat].astype(np.float64)
     else:
         s, si, sj = block_sums(counts, factor)
         flat = np.flatnonzero(s > 0)
@@ -150,20 +159,56 @@ def block_points(
         col0 = bc * factor + col_off
         pr = row0 + si.reshape(-1)[flat] / weight
         pc = col0 + sj.reshape(-1)[flat] / weight
-    x = c + a * pc
-    y = f + e * pr
+        unit = row0 * int(grid_width) + col0
+    x = pc * a
+    x += c
+    y = pr * e
+    y += f
     if b:
         x += b * pr
     if d:
         y += d * pc
-    unit = row0.astype(np.int64) * int(grid_width) + col0
-    return BlockPoints(x, y, weight, unit.astype(np.int64), row0.astype(np.int64), col0.astype(np.int64))
+    del pr, pc
+    return BlockPoints(x, y, weight, unit.astype(np.int64, copy=False), row0, col0)
 
 
 def apply_affine(transform: Any, cols: Any, rows: Any) -> tuple[Any, Any]:
     """``(x, y)`` of pixel coordinates ``(cols, rows)`` (arrays or scalars) under an affine transform."""
     a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
     return c + a * cols + b * rows, f + d * cols + e * rows
+
+
+def cell_centres(unit: np.ndarray, transform: Any, grid_width: int, out: np.ndarray | None = None) -> np.ndarray:
+    """Centres ``(n, 2)`` of the cells with flat indices ``unit`` (``row * grid_width + col``).
+
+    Written into ``out`` when given, in slices, so that no full-size temporaries are made.
+
+    >>> from affine import Affine
+    >>> cell_centres(np.array([0, 5]), Affine(10, 0, 0, 0, -10, 100), 3).tolist()
+    [[5.0, 95.0], [25.0, 85.0]]
+    """
+    unit = np.asarray(unit)
+    n = len(unit)
+    if out is None:
+        out = np.empty((n, 2), dtype=np.float64)
+    a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
+    step = 1 << 20
+    for start in range(0, n, step):
+        rows, cols = np.divmod(unit[start : start + step], grid_width)
+        pr = rows + 0.5
+        pc = cols + 0.5
+        del rows, cols
+        x = out[start : start + step, 0]
+        y = out[start : start + step, 1]
+        np.multiply(pc, a, out=x)
+        x += c
+        np.multiply(pr, e, out=y)
+        y += f
+        if b:
+            x += b * pr
+        if d:
+            y += d * pc
+    return out
 
 
 def block_corners(transform: Any, row0: np.ndarray, col0: np.ndarray, factor: int) -> tuple[np.ndarray, np.ndarray]:

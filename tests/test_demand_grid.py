@@ -342,3 +342,30 @@ def test_zonal_sums_over_sample_areas_match_exactextract():
     for i in range(len(areas)):
         d = demand_from_grid(grid, clip=areas.iloc[[i]], clip_mode="fraction")
         assert d.total == pytest.approx(ref[i], rel=1e-3, abs=1e-6)  # the 0.1 %
+
+
+def test_an_infinity_alone_is_found(tmp_path):
+    data = np.ones((4, 4), dtype=np.float32)
+    data[3, 2] = np.inf
+    path = write_raster(tmp_path / "pop.tif", data)
+    with pytest.raises(InputError, match=r"1 cell\(s\).*row 3, column 2"):
+        demand_from_grid(path)
+    ints = write_raster(tmp_path / "int.tif", np.array([[1, -2], [3, 4]], dtype=np.int16))
+    with pytest.raises(InputError, match=r"1 cell\(s\).*row 0, column 1"):
+        demand_from_grid(ints)
+
+
+@pytest.mark.parametrize("k", [1, 2])
+def test_rotated_grid_centres_follow_the_affine(tmp_path, k):
+    transform = Affine(100.0, 0.0, 500000.0, 0.0, -100.0, 4000000.0) @ Affine.rotation(20.0)
+    data = np.arange(1, 13, dtype=np.float32).reshape(3, 4)
+    path = write_raster(tmp_path / "rot.tif", data, transform=transform)
+    d = demand_from_grid(path, coarsen=k)
+    ref = _brute_coarsen(data, transform, k)
+    for i, u in enumerate(d.unit.tolist()):
+        s, x, y = ref[u]
+        assert d.weight[i] == pytest.approx(s)
+        assert d.xy[i].tolist() == pytest.approx([x, y], abs=1e-6)
+    if k == 1:  # a rotated square cell still has half its diagonal as footprint
+        np.testing.assert_allclose(d.footprint, 50.0 * math.sqrt(2))
+    assert (d.footprint >= 50.0 * k * math.sqrt(2) - 1e-6).all()
