@@ -14,6 +14,7 @@ import enum
 import logging
 import math
 import time
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -348,85 +349,104 @@ def demand_from_grid(
         cells_bad = 0
         first_bad: tuple[int, int] | None = None
 
-        # one read buffer for all windows: fresh memory is slow to touch, reused memory is not
-        buffer = np.empty((min(wrows, height), width), dtype=src.dtypes[bidx - 1])
-        for row_off in range(0, height, wrows):
+        # Windows are read one ahead in a helper thread (GDAL decodes while numpy works on the
+        # previous window; the dataset is only ever used by that thread), into two buffers that
+        # are reused: fresh memory is slow to touch, reused memory is not.
+        starts = list(range(0, height, wrows))
+        buffers: list[np.ndarray | None] = [None, None]
+
+        def fetch(j: int) -> tuple[np.ndarray, np.ndarray | None]:
+            row_off = starts[j]
             h = min(wrows, height - row_off)
             win = Window(0, row_off, width, h)
-            raw = src.read(bidx, window=win, out=buffer[:h])
-            nod = None
-            if use_mask:
-                nod = src.read_masks(bidx, window=win) == 0
-            elif nodata is not None:
-                nod = np.isnan(raw) if (is_float and math.isnan(nodata)) else raw == nodata
-            counts = raw.astype(np.float64) if (need_f64 and raw.dtype != np.float64) else raw
-            if scaled:
-                counts = counts * (1.0 if scale is None else scale) + (0.0 if offset is None else offset)
-            if nod is not None:
-                n_nod = int(np.count_nonzero(nod))
-                if n_nod:
-                    cells_nodata += n_nod
-                    np.copyto(counts, 0, where=nod)
-                del nod
-            total = None
-            if can_be_bad:
-                # two reductions without temporaries tell a clean window: min >= 0 (NaN propagates) and a finite sum
-                lowest = counts.min() if counts.size else 0
-                total = float(counts.sum(dtype=np.float64)) if lowest >= 0 else math.nan
-                if not math.isfinite(total):
-                    bad = ~(counts >= 0)  # negative or NaN
-                    if is_float or scaled:
-                        bad |= np.isinf(counts)
-                    nbad = int(np.count_nonzero(bad))
-                    if first_bad is None:
-                        r, c = np.argwhere(bad)[0]
-                        first_bad = (row_off + int(r), int(c))
-                    cells_bad += nbad
-                    np.copyto(counts, 0, where=bad)
-                    total = None
-                    del bad
-            if cells_bad and bad_values is BadValues.ERROR:
-                continue  # keep counting the bad cells for the error message
-            if values is GridValues.DENSITY_KM2:
-                if ellipsoid is not None:
-                    rows = np.arange(row_off, row_off + h)
-                    counts *= (geographic_row_areas(transform, rows, *ellipsoid) / 1e6)[:, None]
-                else:
-                    counts *= area_km2_const
-            strip_total = float(counts.sum(dtype=np.float64)) if (total is None or values is GridValues.DENSITY_KM2) else total
-            people_in += strip_total
-            if clip_geom is not None:
-                import shapely
+            buf = buffers[j % 2]
+            if buf is None:
+                buf = buffers[j % 2] = np.empty((min(wrows, height), width), dtype=src.dtypes[bidx - 1])
+            raw = src.read(bidx, window=win, out=buf[:h])
+            return raw, (src.read_masks(bidx, window=win) if use_mask else None)
 
-                wt = transform @ Affine.translation(0, row_off)
-                part = shapely.clip_by_rect(clip_geom, *_window_box(wt, h, width))
-                share = clip_fractions(part, wt, (h, width), fraction=frac_mode)
-                kept = counts * share
-                out_people = strip_total - float(kept.sum())
-                cells_clip_out += int(np.count_nonzero((counts > 0) & (share < 1.0)))
-                people_clip_out += out_people
-                counts = kept
-            if const_fp is not None:
-                # plain cells in the grid's own CRS: keep only the window-flat index and the value
-                # (8 bytes a cell); centres are computed straight into the output at the end
-                flat = np.flatnonzero(counts > 0)
-                if len(flat):
-                    index_type = np.int32 if counts.size < 2**31 else np.int64
-                    chunks.append(("cells", row_off, flat.astype(index_type), counts.reshape(-1)[flat]))
-                del flat
-                continue
-            pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
-            if len(pts) == 0:
-                continue
-            x, y = pts.x, pts.y
-            cx, cy = block_corners(transform, pts.row0, pts.col0, factor)
-            if transformer is not None:
-                x, y = transformer.transform(x, y)
-                cx, cy = transformer.transform(cx, cy)
-                x, y, cx, cy = (np.asarray(v, dtype=np.float64) for v in (x, y, cx, cy))
-            fp = farthest_corner(x, y, cx, cy)
-            chunks.append(("points", x, y, pts.weight, pts.unit, fp))
+        pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="geocover-read")
+        try:
+            pending = pool.submit(fetch, 0) if starts else None
+            for j, row_off in enumerate(starts):
+                raw, mask = pending.result()  # type: ignore[union-attr]
+                pending = pool.submit(fetch, j + 1) if j + 1 < len(starts) else None
+                h = raw.shape[0]
+                nod = None
+                if mask is not None:
+                    nod = mask == 0
+                elif nodata is not None:
+                    nod = np.isnan(raw) if (is_float and math.isnan(nodata)) else raw == nodata
+                counts = raw.astype(np.float64) if (need_f64 and raw.dtype != np.float64) else raw
+                if scaled:
+                    counts = counts * (1.0 if scale is None else scale) + (0.0 if offset is None else offset)
+                if nod is not None:
+                    n_nod = int(np.count_nonzero(nod))
+                    if n_nod:
+                        cells_nodata += n_nod
+                        np.copyto(counts, 0, where=nod)
+                    del nod
+                total = None
+                if can_be_bad:
+                    # two reductions without temporaries tell a clean window: min >= 0 (NaN propagates) and a finite sum
+                    lowest = counts.min() if counts.size else 0
+                    total = float(counts.sum(dtype=np.float64)) if lowest >= 0 else math.nan
+                    if not math.isfinite(total):
+                        bad = ~(counts >= 0)  # negative or NaN
+                        if is_float or scaled:
+                            bad |= np.isinf(counts)
+                        nbad = int(np.count_nonzero(bad))
+                        if first_bad is None:
+                            r, c = np.argwhere(bad)[0]
+                            first_bad = (row_off + int(r), int(c))
+                        cells_bad += nbad
+                        np.copyto(counts, 0, where=bad)
+                        total = None
+                        del bad
+                if cells_bad and bad_values is BadValues.ERROR:
+                    continue  # keep counting the bad cells for the error message
+                if values is GridValues.DENSITY_KM2:
+                    if ellipsoid is not None:
+                        rows = np.arange(row_off, row_off + h)
+                        counts *= (geographic_row_areas(transform, rows, *ellipsoid) / 1e6)[:, None]
+                    else:
+                        counts *= area_km2_const
+                strip_total = float(counts.sum(dtype=np.float64)) if (total is None or values is GridValues.DENSITY_KM2) else total
+                people_in += strip_total
+                if clip_geom is not None:
+                    import shapely
 
+                    wt = transform @ Affine.translation(0, row_off)
+                    part = shapely.clip_by_rect(clip_geom, *_window_box(wt, h, width))
+                    share = clip_fractions(part, wt, (h, width), fraction=frac_mode)
+                    kept = counts * share
+                    out_people = strip_total - float(kept.sum())
+                    cells_clip_out += int(np.count_nonzero((counts > 0) & (share < 1.0)))
+                    people_clip_out += out_people
+                    counts = kept
+                if const_fp is not None:
+                    # plain cells in the grid's own CRS: keep only the window-flat index and the value
+                    # (8 bytes a cell); centres are computed straight into the output at the end
+                    flat = np.flatnonzero(counts > 0)
+                    if len(flat):
+                        index_type = np.int32 if counts.size < 2**31 else np.int64
+                        chunks.append(("cells", row_off, flat.astype(index_type), counts.reshape(-1)[flat]))
+                    del flat
+                    continue
+                pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
+                if len(pts) == 0:
+                    continue
+                x, y = pts.x, pts.y
+                cx, cy = block_corners(transform, pts.row0, pts.col0, factor)
+                if transformer is not None:
+                    x, y = transformer.transform(x, y)
+                    cx, cy = transformer.transform(cx, cy)
+                    x, y, cx, cy = (np.asarray(v, dtype=np.float64) for v in (x, y, cx, cy))
+                fp = farthest_corner(x, y, cx, cy)
+                chunks.append(("points", x, y, pts.weight, pts.unit, fp))
+
+        finally:
+            pool.shutdown(wait=True)  # before the dataset closes
         if cells_bad and bad_values is BadValues.ERROR:
             r, c = first_bad  # type: ignore[misc]
             fx, fy = apply_affine(transform, c + 0.5, r + 0.5)

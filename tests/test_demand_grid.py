@@ -369,3 +369,18 @@ def test_rotated_grid_centres_follow_the_affine(tmp_path, k):
     if k == 1:  # a rotated square cell still has half its diagonal as footprint
         np.testing.assert_allclose(d.footprint, 50.0 * math.sqrt(2))
     assert (d.footprint >= 50.0 * k * math.sqrt(2) - 1e-6).all()
+
+
+def test_per_dataset_mask_is_nodata(tmp_path):
+    import rasterio
+
+    data = np.full((3, 4), 5.0, dtype=np.float32)
+    path = write_raster(tmp_path / "masked.tif", data)
+    mask = np.full((3, 4), 255, dtype=np.uint8)
+    mask[1, 1:3] = 0
+    with rasterio.Env(GDAL_TIFF_INTERNAL_MASK=True), rasterio.open(path, "r+") as dst:
+        dst.write_mask(mask)
+    d = demand_from_grid(path)
+    assert d.total == 50.0 and len(d) == 10
+    assert d.summary["dropped"]["nodata"]["cells"] == 2
+    assert 5 not in d.unit.tolist() and 6 not in d.unit.tolist()
