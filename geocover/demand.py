@@ -22,7 +22,7 @@ import numpy as np
 
 from .crs import as_crs, choose_working_crs, crs_label, require_projected
 from .errors import CRSError, InputError, LayerError, ParameterError
-from .grid import apply_affine
+from .grid import PointBuffer, apply_affine
 from .values import Demand
 
 if TYPE_CHECKING:
@@ -341,7 +341,8 @@ def demand_from_grid(
         if same_crs and factor == 1:
             const_fp = half_diagonal(transform, 1)
 
-        chunks: list[tuple[np.ndarray, ...]] = []
+        out = PointBuffer(0)
+        sized = False
         people_in = 0.0
         people_clip_out = 0.0
         cells_clip_out = 0
@@ -425,15 +426,19 @@ def demand_from_grid(
                     people_clip_out += out_people
                     counts = kept
                 if const_fp is not None:
-                    # plain cells in the grid's own CRS: keep only the window-flat index and the value
-                    # (8 bytes a cell); centres are computed straight into the output at the end
+                    # plain cells in the grid's own CRS: centres straight into the output
                     flat = np.flatnonzero(counts > 0)
+                    if not sized:
+                        out.reserve(_capacity_guess(len(flat), h, height, width, factor))
+                        sized = True
                     if len(flat):
-                        index_type = np.int32 if counts.size < 2**31 else np.int64
-                        chunks.append(("cells", row_off, flat.astype(index_type), counts.reshape(-1)[flat]))
+                        out.add_cells(flat, row_off * width, counts.reshape(-1)[flat], transform, width, const_fp)
                     del flat
                     continue
                 pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
+                if not sized:
+                    out.reserve(_capacity_guess(len(pts), h, height, width, factor))
+                    sized = True
                 if len(pts) == 0:
                     continue
                 x, y = pts.x, pts.y
@@ -442,8 +447,7 @@ def demand_from_grid(
                     x, y = transformer.transform(x, y)
                     cx, cy = transformer.transform(cx, cy)
                     x, y, cx, cy = (np.asarray(v, dtype=np.float64) for v in (x, y, cx, cy))
-                fp = farthest_corner(x, y, cx, cy)
-                chunks.append(("points", x, y, pts.weight, pts.unit, fp))
+                out.add_points(x, y, pts.weight, pts.unit, farthest_corner(x, y, cx, cy))
 
         finally:
             pool.shutdown(wait=True)  # before the dataset closes
@@ -458,7 +462,7 @@ def demand_from_grid(
         if cells_bad:
             notes.append(f"counted {cells_bad} negative or non-finite cell(s) as zero (bad_values='zero')")
 
-    xy, weight, unit, footprint = _assemble(chunks, transform, width, const_fp)
+    xy, weight, unit, footprint = out.finish()
     people_out = float(weight.sum())
     dropped: dict[str, dict[str, Any]] = {}
     if cells_nodata:
@@ -496,42 +500,11 @@ def _window_box(wt: Any, h: int, w: int) -> tuple[float, float, float, float]:
     return float(xs.min()), float(ys.min()), float(xs.max()), float(ys.max())
 
 
-def _assemble(
-    chunks: list[tuple[Any, ...]], transform: Any, width: int, const_fp: float | None
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Write the per-window results into the output arrays, freeing each window's arrays as it is copied.
-
-    Peak memory is the output plus the compact per-window records, not twice the output.
-    """
-    from .grid import cell_centres
-
-    n = sum(len(ch[3]) for ch in chunks)
-    xy = np.empty((n, 2), dtype=np.float64)
-    weight = np.empty(n, dtype=np.float64)
-    unit = np.empty(n, dtype=np.int64)
-    footprint = np.full(n, const_fp) if const_fp is not None else np.empty(n, dtype=np.float64)
-    pos = 0
-    chunks.reverse()
-    while chunks:
-        chunk = chunks.pop()
-        if chunk[0] == "cells":
-            _, row_off, flat, w = chunk
-            k = len(w)
-            u = unit[pos : pos + k]
-            np.add(flat, row_off * width, out=u, dtype=np.int64, casting="unsafe")
-            cell_centres(u, transform, width, out=xy[pos : pos + k])
-            weight[pos : pos + k] = w
-        else:
-            _, x, y, w, u, fp = chunk
-            k = len(w)
-            xy[pos : pos + k, 0] = x
-            xy[pos : pos + k, 1] = y
-            weight[pos : pos + k] = w
-            unit[pos : pos + k] = u
-            footprint[pos : pos + k] = fp
-        pos += k
-        del chunk
-    return xy, weight, unit, footprint
+def _capacity_guess(first: int, first_rows: int, height: int, width: int, factor: int) -> int:
+    """Room for the points of the whole grid, judged from the first window (untouched room is free)."""
+    most = -(-height // factor) * -(-width // factor)
+    share = first / max(-(-first_rows // factor) * -(-width // factor), 1)
+    return int(min(most, max(1.25 * share * most, 4096)))
 
 
 # --------------------------------------------------------------------------- areas and points
@@ -865,8 +838,10 @@ class _RasterCells:
         self.same = self.crs.equals(work)
         self.to_src = None if self.same else Transformer.from_crs(work, self.crs, always_xy=True)
         self.to_work = None if self.same else Transformer.from_crs(self.crs, work, always_xy=True)
-        self.nodata = self.src.nodata
-        self.warned = False
+        t = self.src.transform
+        if t.b or t.d:
+            self.src.close()
+            raise LayerError(f"weight raster {path}: the grid is rotated; warp it north-up (gdalwarp) first")
 
     def close(self) -> None:
         self.src.close()

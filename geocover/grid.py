@@ -31,6 +31,7 @@ __all__ = [
     "BlockPoints",
     "block_sums",
     "block_points",
+    "PointBuffer",
     "apply_affine",
     "cell_centres",
     "block_corners",
@@ -239,6 +240,83 @@ def half_diagonal(transform: Any, factor: int = 1) -> float:
     d1 = math.hypot(a + b, d + e)
     d2 = math.hypot(a - b, d - e)
     return 0.5 * factor * max(d1, d2)
+
+
+class PointBuffer:
+    """Output arrays for demand points that grow in place while windows stream in.
+
+    ``numpy.ndarray.resize`` reallocates, which for large blocks moves page
+    tables rather than copying (``mremap`` on Linux), so growing does not
+    hold two copies; :meth:`finish` trims to the points made.  Capacity
+    starts at ``capacity`` (untouched memory costs nothing) and grows by half.
+
+    >>> buf = PointBuffer(1)
+    >>> buf.add_points(np.array([1.0, 2.0]), np.array([3.0, 4.0]), np.array([5.0, 6.0]), np.array([7, 8]), 0.5)
+    >>> xy, w, u, fp = buf.finish()
+    >>> xy.tolist(), w.tolist(), u.tolist(), fp.tolist()
+    ([[1.0, 3.0], [2.0, 4.0]], [5.0, 6.0], [7, 8], [0.5, 0.5])
+    """
+
+    def __init__(self, capacity: int = 1024) -> None:
+        capacity = max(int(capacity), 1)
+        self.n = 0
+        self.xy = np.empty((capacity, 2), dtype=np.float64)
+        self.weight = np.empty(capacity, dtype=np.float64)
+        self.unit = np.empty(capacity, dtype=np.int64)
+        self.footprint = np.empty(capacity, dtype=np.float64)
+
+    @property
+    def capacity(self) -> int:
+        return len(self.weight)
+
+    def reserve(self, extra: int) -> None:
+        """Make room for ``extra`` more points."""
+        need = self.n + int(extra)
+        if need <= self.capacity:
+            return
+        cap = max(need, self.capacity + self.capacity // 2)
+        if self.n == 0:  # nothing to keep: fresh, untouched memory
+            self.__init__(cap)  # type: ignore[misc]
+            return
+        # resize zero-fills the new part (numpy) but keeps one copy of the old part
+        self.xy.resize((cap, 2), refcheck=False)
+        for arr in (self.weight, self.unit, self.footprint):
+            arr.resize(cap, refcheck=False)
+
+    def add_cells(self, flat: np.ndarray, offset: int, weight: np.ndarray, transform: Any, grid_width: int, footprint: float) -> None:
+        """Add whole cells by flat index (``flat + offset`` in the grid), their centres computed in place."""
+        k = len(flat)
+        self.reserve(k)
+        lo, hi = self.n, self.n + k
+        unit = self.unit[lo:hi]
+        np.add(flat, offset, out=unit, casting="unsafe")
+        cell_centres(unit, transform, grid_width, out=self.xy[lo:hi])
+        self.weight[lo:hi] = weight
+        self.footprint[lo:hi] = footprint
+        self.n = hi
+        del unit
+
+    def add_points(self, x: np.ndarray, y: np.ndarray, weight: np.ndarray, unit: np.ndarray, footprint: Any) -> None:
+        """Add points with their coordinates, weights, units and footprints (array or one value)."""
+        k = len(weight)
+        self.reserve(k)
+        lo, hi = self.n, self.n + k
+        self.xy[lo:hi, 0] = x
+        self.xy[lo:hi, 1] = y
+        self.weight[lo:hi] = weight
+        self.unit[lo:hi] = unit
+        self.footprint[lo:hi] = footprint
+        self.n = hi
+
+    def finish(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """The arrays trimmed to the points added (the buffer is not usable afterwards)."""
+        n = self.n
+        self.xy.resize((n, 2), refcheck=False)
+        for arr in (self.weight, self.unit, self.footprint):
+            arr.resize(n, refcheck=False)
+        out = (self.xy, self.weight, self.unit, self.footprint)
+        del self.xy, self.weight, self.unit, self.footprint
+        return out
 
 
 # --------------------------------------------------------------------------- ellipsoidal areas
