@@ -481,7 +481,7 @@ def demand_from_grid(
         "grid_shape": [height, width],
         "coarsen": factor,
         "clip_mode": clip_mode.value if clip_geom is not None else None,
-        "window_rows": wrows,
+        "window_rows": min(wrows, height),
         "people_in": people_in,
         "people_out": people_out,
         "points": int(len(weight)),

@@ -384,3 +384,18 @@ def test_per_dataset_mask_is_nodata(tmp_path):
     assert d.total == 50.0 and len(d) == 10
     assert d.summary["dropped"]["nodata"]["cells"] == 2
     assert 5 not in d.unit.tolist() and 6 not in d.unit.tolist()
+
+
+def test_projected_grid_into_another_working_crs(tmp_path):
+    from pyproj import Transformer
+
+    data = np.array([[1.0, 0.0], [2.0, 3.0]], dtype=np.float32)
+    path = write_raster(tmp_path / "pop.tif", data)
+    d = demand_from_grid(path, crs="EPSG:3857")
+    tr = Transformer.from_crs("EPSG:32626", "EPSG:3857", always_xy=True)
+    for i, u in enumerate(d.unit.tolist()):
+        r, c = divmod(u, 2)
+        assert d.xy[i].tolist() == pytest.approx(list(tr.transform(*apply_affine(UTM, c + 0.5, r + 0.5))), abs=1e-6)
+    # Web Mercator stretches distances by about 1 / cos(latitude ~36 deg) here, and the footprint follows
+    assert (d.footprint > 50 * math.sqrt(2) * 1.2).all() and (d.footprint < 50 * math.sqrt(2) * 1.3).all()
+    assert any("reprojected" in n for n in d.summary["notes"])
