@@ -397,6 +397,11 @@ def demand_from_grid(
                         if is_float or scaled:
                             bad |= np.isinf(counts)
                         nbad = int(np.count_nonzero(bad))
+                        if nbad == 0:
+                            raise InputError(
+                                f"{what}, band {bidx}: the counts in rows {row_off}-{row_off + h - 1} sum past the "
+                                "largest float; are these people counts? Rescale the grid"
+                            )
                         if first_bad is None:
                             r, c = np.argwhere(bad)[0]
                             first_bad = (row_off + int(r), int(c))
@@ -432,6 +437,7 @@ def demand_from_grid(
                         out.reserve(_capacity_guess(len(flat), h, height, width, factor))
                         sized = True
                     if len(flat):
+                        out.reserve(len(flat), _expected_points(out.n + len(flat), row_off + h, height))
                         out.add_cells(flat, row_off * width, counts.reshape(-1)[flat], transform, width, const_fp)
                     del flat
                     continue
@@ -441,6 +447,7 @@ def demand_from_grid(
                     sized = True
                 if len(pts) == 0:
                     continue
+                out.reserve(len(pts), _expected_points(out.n + len(pts), row_off + h, height))
                 x, y = pts.x, pts.y
                 cx, cy = block_corners(transform, pts.row0, pts.col0, factor)
                 if transformer is not None:
@@ -498,6 +505,11 @@ def _window_box(wt: Any, h: int, w: int) -> tuple[float, float, float, float]:
     """``(xmin, ymin, xmax, ymax)`` of a window from its transform (rotated grids too), with a cell of margin."""
     xs, ys = apply_affine(wt, np.array([-1.0, w + 1.0, -1.0, w + 1.0]), np.array([-1.0, -1.0, h + 1.0, h + 1.0]))
     return float(xs.min()), float(ys.min()), float(xs.max()), float(ys.max())
+
+
+def _expected_points(so_far: int, rows_done: int, height: int) -> int:
+    """Points expected for the whole grid at the rate seen so far, with a tenth more (a growth hint)."""
+    return int(1.1 * so_far * height / max(rows_done, 1)) + 1024
 
 
 def _capacity_guess(first: int, first_rows: int, height: int, width: int, factor: int) -> int:

@@ -269,12 +269,12 @@ class PointBuffer:
     def capacity(self) -> int:
         return len(self.weight)
 
-    def reserve(self, extra: int) -> None:
-        """Make room for ``extra`` more points."""
+    def reserve(self, extra: int, expect: int | None = None) -> None:
+        """Make room for ``extra`` more points; ``expect`` is a guess of the final count, if any."""
         need = self.n + int(extra)
         if need <= self.capacity:
             return
-        cap = max(need, self.capacity + self.capacity // 2)
+        cap = max(need, int(expect) if expect else self.capacity + self.capacity // 2)
         if self.n == 0:  # nothing to keep: fresh, untouched memory
             self.__init__(cap)  # type: ignore[misc]
             return
