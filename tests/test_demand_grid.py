@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import logging
 import math
+import os
 from pathlib import Path
 
 import numpy as np
@@ -325,7 +326,8 @@ def test_invalid_clip_polygon_is_repaired_and_reported(tmp_path):
     conserved(d)
 
 
-SAMPLE = Path(__file__).resolve().parents[1] / "sample_layers"
+# the sample scenario (sample_layers/ at the repository root); GEOCOVER_SAMPLE_LAYERS points elsewhere
+SAMPLE = Path(os.environ.get("GEOCOVER_SAMPLE_LAYERS", Path(__file__).resolve().parents[1] / "sample_layers"))
 
 
 @pytest.mark.skipif(
