@@ -88,3 +88,28 @@ def test_point_buffer_grows_without_losing_points(batches, start):
     # cells: centre of (row, col) = (u // 1000, u % 1000) under the 10 m grid
     np.testing.assert_allclose(xy[cells, 0], (u[cells] % 1000 + 0.5) * 10)
     np.testing.assert_allclose(xy[cells, 1], -(u[cells] // 1000 + 0.5) * 10)
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    st.lists(st.tuples(st.floats(500000, 501200), st.floats(3999000, 4000000)), min_size=3, max_size=7),
+    st.floats(5.0, 300.0),
+    st.integers(0, 10_000),
+)
+def test_clip_fraction_agrees_with_exactextract_on_random_polygons(points, radius, seed):
+    import geopandas as gpd
+    import shapely
+    from exactextract import exact_extract  # independent zonal statistics (exactextract, PyPI)
+
+    poly = shapely.convex_hull(shapely.MultiPoint(points)).buffer(radius, quad_segs=4)
+    rng = np.random.default_rng(seed)
+    data = rng.gamma(1.0, 10.0, size=(12, 14)).astype(np.float32)
+    data[rng.random(data.shape) < 0.3] = -1
+    frame = gpd.GeoDataFrame(geometry=[poly], crs="EPSG:32626")
+    with tempfile.TemporaryDirectory() as tmp:
+        path = write_raster(Path(tmp) / "pop.tif", data, nodata=-1)
+        ref = float(exact_extract(str(path), frame, "sum", output="pandas")["sum"].iloc[0])
+        d = demand_from_grid(path, clip=frame, clip_mode="fraction", window_rows=5)
+    assert d.total == pytest.approx(ref, rel=1e-6, abs=1e-6)
+    s = d.summary
+    assert s["people_out"] + s["dropped"]["outside_clip"]["people"] == pytest.approx(s["people_in"], rel=1e-12)
