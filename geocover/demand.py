@@ -21,6 +21,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from .crs import as_crs, choose_working_crs, crs_label, require_projected
+from .choices import BadValues, ClipMode, GridValues, Placement
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .grid import PointBuffer, apply_affine
 from .values import Demand
@@ -42,35 +43,6 @@ logger = logging.getLogger(__name__)
 
 #: cells per window when ``window_rows`` is not given (about 32 MB of float64)
 WINDOW_CELLS = 1 << 22
-
-
-class GridValues(str, enum.Enum):
-    """What the numbers in a population band mean."""
-
-    COUNT = "count"  #: people per cell
-    DENSITY_KM2 = "density_km2"  #: people per square kilometre
-
-
-class ClipMode(str, enum.Enum):
-    """How cells on the edge of a study area count."""
-
-    CENTRE = "centre"  #: a cell counts wholly when its centre lies inside
-    FRACTION = "fraction"  #: a cell counts by the share of its area inside
-
-
-class BadValues(str, enum.Enum):
-    """What to do with negative or non-finite counts."""
-
-    ERROR = "error"  #: stop with an error naming the band, the number of bad cells and the first one
-    ZERO = "zero"  #: count them as zero people and say so in the summary
-
-
-class Placement(str, enum.Enum):
-    """Where the people of a polygon go."""
-
-    CENTROID = "centroid"  #: the polygon's centroid (may fall outside a concave polygon)
-    INSIDE = "inside"  #: a point guaranteed inside the polygon (shapely.point_on_surface)
-    SPREAD = "spread"  #: many points inside, by a weight raster or a regular lattice
 
 
 def _choice(enum_cls: type[enum.Enum], value: Any, param: str) -> Any:

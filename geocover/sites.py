@@ -36,7 +36,6 @@ go to ``Sites.close_pairs`` and the models forbid opening both.
 
 from __future__ import annotations
 
-import enum
 import logging
 import math
 from dataclasses import dataclass
@@ -46,6 +45,7 @@ import numpy as np
 import shapely
 
 from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, require_projected
+from .choices import LatticeShape
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
 from .layers import LayerRef, open_raster, parse_layer_ref, read_vector, to_crs
@@ -192,13 +192,6 @@ class LandUseMask:
         if self.allowed is not None:
             return np.isin(values, self.allowed)
         return ~np.isin(values, self.forbidden)
-
-
-class LatticeShape(str, enum.Enum):
-    """Arrangement of generated candidate points."""
-
-    SQUARE = "square"  #: rows and columns ``spacing`` apart
-    HEX = "hex"  #: rows ``spacing * sqrt(3) / 2`` apart, every other row shifted by half a spacing
 
 
 # --------------------------------------------------------------------------- reading
