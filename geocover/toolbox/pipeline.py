@@ -608,8 +608,10 @@ def summary_lines(outcome: StudyOutcome) -> list[str]:
     ]
     if outcome.audit:
         a = outcome.audit
+        bound = a["aggregation_error_bound"]
+        bound_text = f"bound {bound:,.0f}" if bound is not None and math.isfinite(bound) else "no footprint bound for travel times"
         lines.append(
             f"  full-resolution:    {a['people_covered_full_resolution']:,.0f} people covered "
-            f"(aggregation error {a['aggregation_error']:+,.0f}, bound {a['aggregation_error_bound']:,.0f})"
+            f"(aggregation error {a['aggregation_error']:+,.0f}, {bound_text})"
         )
     return lines
