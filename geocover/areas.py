@@ -119,9 +119,9 @@ def _geodesic_circles(sites: Sites, chosen: np.ndarray, radius: float, n_vertice
 
 def service_areas(
     source: Reach | tuple[Sites, Sequence[int], float],
-    chosen: Sequence[int] | None = None,
     clip: Any = None,
     *,
+    chosen: Sequence[int] | None = None,
     quad_segs: int = 32,
 ) -> np.ndarray:
     """One service-area polygon per chosen site.
@@ -132,11 +132,11 @@ def service_areas(
         A planar, geodesic or network :class:`~geocover.values.Reach` (its
         rule gives the limit, its sites the centres), or a tuple of sites,
         chosen site indices and a planar service distance in metres.
+    clip : shapely geometry, optional
+        The study area; the polygons are clipped to it.
     chosen : sequence of int, optional
         Site indices (with a Reach); all sites when omitted.  With a tuple
         source the tuple's indices are used.
-    clip : shapely geometry, optional
-        The study area; planar circles are clipped to it.
     quad_segs : int
         Segments per quarter circle of planar circles (geodesic circles use
         ``8 * quad_segs`` vertices).

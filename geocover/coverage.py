@@ -134,7 +134,10 @@ def _planar_chunk(dxy: np.ndarray, sxy: np.ndarray, limit: float) -> tuple[np.nd
     offsets = np.arange(-k - 1, k + 2, dtype=np.float64)
     strip = strip_s[:, None] + offsets[None, :]  # (m_sel, J), site-major when flattened
     bottom = y0 + strip * height
-    gap = np.maximum(np.maximum(bottom - ssy[:, None], ssy[:, None] - (bottom + height)), 0.0)
+    # vertical gap from the site to the strip, made a little smaller so that rounding in the
+    # strip assignment can only widen the measured chord (the exact check comes later)
+    tol = 1e-9 * (abs(y0) + abs(y1) + limit)
+    gap = np.maximum(np.maximum(bottom - ssy[:, None], ssy[:, None] - (bottom + height)) - tol, 0.0)
     valid = (strip >= 0) & (strip < n_strips) & (gap <= limit)
     half = np.sqrt(np.maximum(limit * limit - gap * gap, 0.0))
     lo_off = np.clip(ssx[:, None] - half - x0 + limit, 0.0, span)
@@ -187,26 +190,38 @@ def _planar_chunk(dxy: np.ndarray, sxy: np.ndarray, limit: float) -> tuple[np.nd
     return csr.indptr.astype(np.int64), csr.indices.astype(np.int32, copy=False), csr.data
 
 
-def _assemble(parts: list[tuple[np.ndarray, np.ndarray, np.ndarray]], n: int, m: int) -> sp.csr_matrix:
-    """Join chunk CSR triples in row order, freeing each chunk as it is copied."""
-    nnz = int(sum(len(p[1]) for p in parts))
-    idx_t = np.int32 if nnz < 2**31 and m < 2**31 else np.int64
-    indptr = np.zeros(n + 1, dtype=idx_t)
-    indices = np.empty(nnz, dtype=idx_t)
-    data = np.empty(nnz, dtype=np.float64)
-    row = 0
+def _assemble(parts: Any, bounds: list[tuple[int, int]], n: int, m: int, estimate: int) -> sp.csr_matrix:
+    """Write chunk CSR triples, in row order, straight into arrays sized from the estimate.
+
+    The arrays are allocated once (``estimate`` + 5 %) and grown only if the
+    estimate was short; pages past the last pair are never touched, so the
+    relation costs its own size plus one chunk.
+    """
+    cap = int(estimate * 1.05) + 65_536
+    idx_t = np.int32 if m < 2**31 else np.int64
+    indices = np.empty(cap, dtype=idx_t)
+    data = np.empty(cap, dtype=np.float64)
+    indptr = np.zeros(n + 1, dtype=np.int64)
     at = 0
-    parts.reverse()
-    while parts:
-        ptr, ind, val = parts.pop()
-        rows = len(ptr) - 1
-        indptr[row + 1 : row + rows + 1] = ptr[1:] + at
-        indices[at : at + len(ind)] = ind
-        data[at : at + len(val)] = val
-        row += rows
-        at += len(ind)
+    for (a, b), (ptr, ind, val) in zip(bounds, parts):
+        k = len(ind)
+        if at + k > cap:
+            cap = max(2 * cap, at + k)
+            logger.debug("planar coverage: the pair estimate was short; growing to %d", cap)
+            grown_i, grown_d = np.empty(cap, dtype=idx_t), np.empty(cap, dtype=np.float64)
+            grown_i[:at], grown_d[:at] = indices[:at], data[:at]
+            indices, data = grown_i, grown_d
+        indices[at : at + k] = ind
+        data[at : at + k] = val
+        indptr[a + 1 : b + 1] = ptr[1:] + at
+        at += k
         del ptr, ind, val
-    mat = sp.csr_matrix((data, indices, indptr), shape=(n, m), copy=False)
+    if at < 2**31:
+        indptr = indptr.astype(np.int32)
+        indices = indices[:at]
+    else:
+        indices = indices[:at].astype(np.int64)
+    mat = sp.csr_matrix((data[:at], indices, indptr), shape=(n, m), copy=False)
     # every (row, column) pair is produced once and each row's columns are increasing (see _planar_chunk)
     mat.has_canonical_format = True
     return mat
@@ -367,11 +382,10 @@ def reach_planar(
         return _planar_chunk(dxy[ab[0] : ab[1]], sxy, limit)
 
     if int(threads) == 1 or len(bounds) == 1:
-        parts = [run(ab) for ab in bounds]
+        mat = _assemble((run(ab) for ab in bounds), bounds, n, m, est)
     else:
         with ThreadPoolExecutor(max_workers=int(threads)) as pool:
-            parts = list(pool.map(run, bounds))
-    mat = _assemble(parts, n, m)
+            mat = _assemble(pool.map(run, bounds), bounds, n, m, est)
     return _reach(mat, demand, sites, rule)
 
 

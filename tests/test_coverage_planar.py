@@ -139,3 +139,14 @@ def test_memory_budget_refusal_names_a_factor_that_fits():
     with pytest.raises(ParameterError):
         check_memory(10, -1.0, 10)
     assert reach_planar(d, s, 2000.0, memory_budget_gb=budget * 6).matrix.nnz > 0
+
+
+def test_a_short_pair_estimate_only_grows_the_arrays(monkeypatch):
+    import geocover.coverage as cov
+
+    monkeypatch.setattr(cov, "estimate_pairs", lambda *a, **k: 1)  # forces the growth path
+    rng = np.random.default_rng(11)
+    d = rng.uniform(0, 2000, (4000, 2))
+    s = rng.uniform(0, 2000, (60, 2))
+    reach = _check_against_cdist(d, s, 900.0, chunk_rows=500)
+    assert reach.matrix.nnz > 65_536 + 1  # more pairs than the first allocation held
