@@ -163,3 +163,12 @@ _coords = st.lists(st.tuples(st.integers(-40, 40), st.integers(-40, 40)), min_si
 def test_property_equals_brute_force_on_integer_lattices(d, s, limit, chunk):
     # integer coordinates put many pairs exactly at the limit (e.g. 5-12-13 triangles); brute force is cdist
     _check_against_cdist(np.array(d, float) * 10.0, np.array(s, float) * 10.0, limit * 10.0, chunk_rows=chunk)
+
+
+def test_sites_in_several_blocks(monkeypatch):
+    import geocover.coverage as cov
+
+    monkeypatch.setattr(cov, "_SITES_PER_BLOCK", 7)
+    monkeypatch.setattr(cov, "_CANDIDATES_PER_BLOCK", 50)
+    rng = np.random.default_rng(12)
+    _check_against_cdist(rng.uniform(0, 3000, (500, 2)), rng.uniform(0, 3000, (90, 2)), 400.0, chunk_rows=128)
