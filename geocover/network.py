@@ -445,8 +445,9 @@ def _legs(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> tuple[np.ndarray, np
     u, v = net.seg_u[seg], net.seg_v[seg]
     full = net.seg_time[seg]
     t = snap.t[idx]
-    from_u = np.where(net.forward[seg], t * full + net.penalty(u), np.inf)
-    from_v = np.where(net.backward[seg], (1.0 - t) * full + net.penalty(v), np.inf)
+    # a point snapped onto an end node (t = 0 or 1) is at that node, whatever the segment's direction
+    from_u = np.where(net.forward[seg] | (t == 0.0), t * full + net.penalty(u), np.inf)
+    from_v = np.where(net.backward[seg] | (t == 1.0), (1.0 - t) * full + net.penalty(v), np.inf)
     return u, v, from_u, from_v
 
 
@@ -458,8 +459,8 @@ def _source_graph(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> sp.csr_matri
     full = net.seg_time[seg]
     k = len(idx)
     src = n + np.arange(k)
-    to_u = net.backward[seg]  # leaving the site towards u means driving v -> u
-    to_v = net.forward[seg]
+    to_u = net.backward[seg] | (t == 0.0)  # leaving the site towards u means driving v -> u (or standing on u)
+    to_v = net.forward[seg] | (t == 1.0)
     g = net.graph.tocoo()
     tail = np.concatenate([g.row, src[to_u], src[to_v]])
     head = np.concatenate([g.col, net.seg_u[seg][to_u], net.seg_v[seg][to_v]])
