@@ -12,7 +12,8 @@ How a time is made
   the nearest segment (not the nearest vertex) within ``max_snap_m``; the
   off-road leg is timed at ``offroad_speed_kmh``.  Points farther than
   ``max_snap_m`` from every road are *unsnapped*: they get no coverage and
-  are listed in ``reach.notes``.
+  are listed in ``reach.notes``.  A point whose nearest road point is a
+  node stands on that node, whatever the direction of its segment.
 * **Times.**  From each site, Dijkstra bounded by the limit
   (:func:`scipy.sparse.csgraph.dijkstra` with ``limit``) runs from a virtual
   node on the site's segment that leads to the segment's end(s) the site may
