@@ -858,8 +858,10 @@ def screen_sites(
     # exclusion zones
     nearest = np.full(total, np.inf)
     rows = np.flatnonzero(usable)
+    zones: dict[str, np.ndarray] = {}
     for rule in rules:
         geoms, ids = _exclusion_layer(rule, working, notes)
+        zones[str(rule.name)] = geoms
         hits = _screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m)
         nearest = np.minimum(nearest, hits.nearest)
         reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
@@ -924,7 +926,7 @@ def screen_sites(
     )
     record = ScreeningRecord(
         xy, verdict, rule_text, layer, feature, nearest, site_index, label=label, crs=working_label,
-        land_use_share=share, notes=tuple(notes),
+        land_use_share=share, notes=tuple(notes), zones=zones,
     )
     logger.info(
         "screened %d candidate(s): %d kept; %d existing site(s)%s",
@@ -960,36 +962,10 @@ def screening_summary(record: ScreeningRecord) -> list[dict[str, Any]]:
 
 
 def screened_sites_frame(record: ScreeningRecord, sites: Sites | None = None) -> "gpd.GeoDataFrame":
-    """The ``screened_sites`` layer: one point per record row with its verdict and reasons.
+    """The ``screened_sites`` layer (see :func:`geocover.outputs.screened_sites_layer`)."""
+    from .outputs import screened_sites_layer
 
-    Rows with verdict ``invalid`` get an empty geometry.  With ``sites`` a
-    ``role`` column (candidate / existing_kept / existing_optional) is added
-    for the kept rows.
-    """
-    import geopandas as gpd
-
-    located = record.verdict.astype(str) != Verdict.INVALID.value
-    geometry = np.full(len(record), None, dtype=object)
-    if located.any():
-        geometry[located] = shapely.points(record.xy[located])
-    data: dict[str, Any] = {
-        "label": record.label.astype(str),
-        "verdict": record.verdict.astype(str),
-        "rule": record.rule.astype(str),
-        "layer": record.layer.astype(str),
-        "feature": record.feature,
-        "nearest_exclusion_m": record.nearest_exclusion_m,
-        "land_use_share": record.land_use_share,
-        "site_index": record.site_index,
-    }
-    if sites is not None:
-        role = np.full(len(record), "", dtype=object)
-        kept = record.site_index >= 0
-        role[kept] = [SiteRole(int(r)).label for r in sites.role[record.site_index[kept]]]
-        data["role"] = role
-    frame = gpd.GeoDataFrame(data, geometry=geometry, crs=record.crs)
-    frame.attrs["description"] = "every candidate and existing site with its screening verdict and reason"
-    return frame
+    return screened_sites_layer(record, None, sites)
 
 
 # --------------------------------------------------------------------------- lattice

@@ -279,21 +279,6 @@ def _study_area_geometry(ref: Any, crs: Any) -> Any:
     return shapely.union_all(frame.geometry.values)
 
 
-def _exclusion_geometries(exclusions: Any, crs: Any) -> list[Any]:
-    from ..layers import LayerRef, read_vector, to_crs
-
-    geoms: list[Any] = []
-    for exc in exclusions or ():
-        layer = exc.layer
-        try:
-            frame = layer if not isinstance(layer, (LayerRef, str, Path)) else read_vector(layer, "exclusion zones")
-            frame = to_crs(frame, crs, "exclusion zones")
-            geoms.extend(frame.geometry.values)
-        except Exception as exc_:  # the map is a view; a layer the screen already read cannot fail here
-            logger.warning("map: could not draw exclusion layer %s (%s)", layer, exc_)
-    return geoms
-
-
 def _prepare(sections: Mapping[str, Mapping[str, Any]], run: RunContext) -> tuple[Demand, Sites, ScreeningRecord, Reach]:
     crs = sections["study"].get("crs")
     with run.step("reading demand"):
@@ -337,7 +322,7 @@ def _finish(
     study_area = _study_area_geometry(sp_.get("study_area") or dp.get("clip"), demand.crs)
     with run.step("service areas"):
         service_polygons = list(service_areas(reach, plan.sites, clip=study_area))
-    exclusion_geoms = _exclusion_geometries(sp_.get("exclude"), demand.crs)
+    exclusion_geoms = [g for geoms in record.zones.values() for g in geoms]
     notes = [str(n) for n in demand.summary.get("notes", [])] + [str(n) for n in record.notes]
     return StudyOutcome(
         title=title,
