@@ -100,6 +100,9 @@ LAND_USE_COLOURS = {  # our own palette, only for viewing in a desktop GIS
     7: (70, 120, 200, 255),
 }
 ROAD_SPEED_KMH = {"arterial": 80.0, "collector": 60.0, "local": 40.0}
+TRACK_SPEED_KMH = (30.0, 40.0)  # rural tracks: spurs to farms, through tracks between roads
+RURAL_REACH_M = 500.0  # rural roads are added until ...
+RURAL_TARGET_SHARE = 0.975  # ... this share of the people live within RURAL_REACH_M of a road
 TOWN_ARTERIAL_SPEED_KMH = 50.0  # arterial stretches inside a town
 
 
@@ -563,14 +566,18 @@ def build_roads(rng, g):
                 lines.append((line, "collector", ROAD_SPEED_KMH["collector"], None))
                 break
 
-    # node the network: split every line where another one meets or crosses it,
-    # on a 1 cm grid, so lines meet only at shared vertices
+    return node_roads(lines), lattices, lines
+
+
+def node_roads(lines):
+    """Node the lines into the road layer: split every line where another one
+    meets or crosses it, on a 1 cm grid, so that lines meet only at shared vertices."""
     geoms = [ln[0] for ln in lines]
     noded = shapely.get_parts(shapely.unary_union(geoms, grid_size=0.01))
     tree = shapely.STRtree(geoms)
     mids = shapely.line_interpolate_point(noded, 0.5, normalized=True)
     src = tree.query_nearest(mids, return_distance=False, all_matches=False)[1]
-    rank = {"arterial": 0, "collector": 1, "local": 2}
+    rank = {"arterial": 0, "collector": 1, "local": 2, "track": 3}
     recs = []
     for piece, s in zip(noded, src):
         _, cls, speed, want = lines[s]
@@ -600,7 +607,143 @@ def build_roads(rng, g):
             uf.union(p, q)
     roots = {uf.find(p) for p in uf.parent}
     assert len(roots) == 1, f"road network falls into {len(roots)} pieces"
-    return roads, lattices
+    return roads
+
+
+def box_sum(a: np.ndarray, half: int) -> np.ndarray:
+    """Sum of a over the (2 half + 1)-cell square around every cell (zero outside)."""
+    c = np.pad(a, ((half + 1, half), (half + 1, half))).cumsum(0).cumsum(1)
+    k = 2 * half + 1
+    return c[k:, k:] - c[:-k, k:] - c[k:, :-k] + c[:-k, :-k]
+
+
+def build_rural_roads(rng, g, pop32, grid, lines, parcels, stations, reach=RURAL_REACH_M,
+                      share=RURAL_TARGET_SHARE):
+    """Rural collectors and tracks that bring the countryside within reach of a road.
+
+    Grown greedily after everything that depends on the town-and-village network
+    (stations, parcels) is placed, so those layers do not change.  Each step takes
+    the populated cell with the most people still out of reach around it (in a
+    square window) and draws a road from the nearest road it can get to without
+    touching the sea margin, a river, the lake, the wetland, the reserve, a parcel
+    or a station.  Drawn from the farm end, the road stops at the first road it
+    meets, so new roads join the network at a shared vertex and never cross a road;
+    beyond its first 40 m it keeps 25 m from every other road.  First come up to
+    20 collectors (60 km/h) into the widest empty stretches (people more than
+    2 km from a road), carried on to a road ahead within 6 km where there is one.
+    Then tracks: spurs to farms (30 km/h), or through tracks (40 km/h) where a
+    road lies within 900 m ahead of the spur's end.  Stops once ``share`` of the
+    people live within ``reach`` of a road.  Returns the noded road layer.
+    """
+    island = g["island"]
+    on_land = island.buffer(-100.0)
+    rivers = shapely.union_all([g["river"], g["tributary"]])
+    blocked = shapely.union_all([g["lake"], g["wetland"], g["reserve"], rivers.buffer(40.0),
+                                 *parcels.geometry.buffer(15.0), *stations.geometry.buffer(15.0)])
+    shapely.prepare(on_land)
+    shapely.prepare(blocked)
+    X, Y = grid["X"], grid["Y"]
+    people = np.where(pop32 > 0, pop32, 0.0).astype(np.float64)
+    sel = people > 0
+    px, py, w = X[sel], Y[sel], people[sel]
+    cells = shapely.points(px, py)
+    total = w.sum()
+    geoms = [ln[0] for ln in lines]
+    tree = shapely.STRtree(geoms)
+    (i_in, _), dist = tree.query_nearest(cells, return_distance=True, all_matches=False)
+    d = np.empty(len(w))
+    d[i_in] = dist
+    lines = list(lines)
+    n_base = len(lines)
+
+    def clear_of_network(line, ends, tree):
+        core = line.difference(shapely.union_all([Point(e).buffer(40.0) for e in ends]))
+        return core.is_empty or not len(tree.query(core, predicate="dwithin", distance=25.0))
+
+    def ok(line):
+        return line.is_simple and on_land.contains(line) and not blocked.intersects(line)
+
+    def anchors(tree, geoms, xy, max_d, exclude=None):
+        """Nearest points of the nearest roads, closest first."""
+        pt = Point(xy)
+        idx = tree.query(pt, predicate="dwithin", distance=max_d)
+        near = np.asarray(geoms, dtype=object)[idx]
+        q = shapely.get_coordinates(shapely.line_interpolate_point(near, shapely.line_locate_point(near, pt)))
+        dq = np.hypot(*(q - xy).T)
+        keep = np.ones(len(q), bool) if exclude is None else np.hypot(*(q - exclude).T) > 1_500.0
+        order = np.lexsort((idx[keep], np.round(dq[keep], 3)))
+        return list(q[keep][order])
+
+    def first_road(spur, tree, geoms):
+        """Cut a spur drawn from a road to a farm where, coming from the farm, it first meets a road."""
+        hits = shapely.intersection(spur, np.asarray(geoms, dtype=object)[tree.query(spur)])
+        at = shapely.line_locate_point(spur, shapely.points(shapely.get_coordinates(hits)))
+        at = at[at < spur.length - 1e-6]
+        if len(at) == 0:
+            return spur
+        return substring(spur, float(at.max()), spur.length)
+
+    def update(line):
+        x0, y0, x1, y1 = line.bounds
+        near = (px > x0 - reach - 1) & (px < x1 + reach + 1) & (py > y0 - reach - 1) & (py < y1 + reach + 1)
+        d[near] = np.minimum(d[near], shapely.distance(line, cells[near]))
+
+    phases = [("collector", 15, 2_000.0, 20), ("track", 7, reach, 4_000)]
+    for cls, half, limit, max_new in phases:
+        made = 0
+        skip = np.zeros(X.shape, bool)  # places this phase could not link
+        while made < max_new and w[d > reach].sum() > (1.0 - share) * total:
+            far = np.zeros(X.shape)
+            far[sel] = np.where(d > limit, w, 0.0)
+            score = box_sum(far, half)
+            score[skip | (far == 0.0)] = -1.0  # aim at a cell that is itself far from the roads
+            r, c = np.unravel_index(int(np.argmax(score)), score.shape)
+            if score[r, c] < 1.0:  # (the box sums carry rounding noise near 0)
+                break
+            target = np.array([X[r, c], Y[r, c]]) + rng.normal(0.0, 30.0, 2)
+            geoms = [ln[0] for ln in lines]
+            tree = shapely.STRtree(geoms)
+            line = None
+            for a in anchors(tree, geoms, target, 6_000.0)[:8]:
+                for _ in range(3):
+                    spur = first_road(curved_path(rng, a, target, bend_sd=0.08, wiggle_sd=0.02, step=250.0),
+                                      tree, geoms)
+                    if spur.length > 150.0 and ok(spur) and clear_of_network(spur, [spur.coords[0]], tree):
+                        line = spur
+                        break
+                if line is not None:
+                    break
+            if line is None:
+                skip[max(r - 3, 0):r + 4, max(c - 3, 0):c + 4] = True
+                continue
+            a = np.asarray(line.coords[0])
+            # carry on to another road when one is near enough ahead (a through road)
+            heading = unit(target - a)
+            through = None
+            reach_on = 6_000.0 if cls == "collector" else 900.0
+            for b in anchors(tree, geoms, target, reach_on, exclude=a)[:6]:
+                if np.dot(unit(b - target), heading) < 0.3:
+                    continue
+                rest = curved_path(rng, target, b, bend_sd=0.06, wiggle_sd=0.02, step=250.0)
+                full = LineString(np.vstack([np.asarray(line.coords), np.asarray(rest.coords)[1:]]))
+                if ok(full) and clear_of_network(full, [a, b], tree):
+                    through = full
+                    break
+            if through is not None:
+                line = through
+            if cls == "collector":
+                speed = ROAD_SPEED_KMH[cls]
+            else:
+                speed = TRACK_SPEED_KMH[1] if through is not None else TRACK_SPEED_KMH[0]
+            lines.append((line, cls, speed, None))
+            update(line)
+            made += 1
+    roads = node_roads(lines)
+    new = lines[n_base:]
+    print(f"rural roads     {sum(ln[1] == 'collector' for ln in new)} collectors, "
+          f"{sum(ln[1] == 'track' for ln in new)} tracks; people within {reach:.0f} m of a road "
+          f"{100.0 * w[d <= reach].sum() / total:.2f} %")
+    return roads
 
 
 def build_census(rng, g, pop32, grid):
@@ -865,10 +1008,13 @@ def main(argv=None) -> int:
     rng = np.random.default_rng(SEED)
     g = build_geography(rng)
     pop32, lu, grid = build_grids(rng, g)
-    roads, lattices = build_roads(rng, g)
+    roads, lattices, lines = build_roads(rng, g)
     census, exact = build_census(rng, g, pop32, grid)
     stations = build_stations(g, lattices, roads)
     parcels = build_parcels(rng, g, roads)
+    # rural roads last: stations and parcels above were placed against the
+    # town-and-village network, and they keep their places
+    roads = build_rural_roads(rng, g, pop32, grid, lines, parcels, stations)
 
     study = gpd.GeoDataFrame({"name": [ISLAND_NAME]}, geometry=[g["island"]], crs=CRS)
     river = gpd.GeoDataFrame({"name": [RIVER_NAME, TRIBUTARY_NAME]},

@@ -215,14 +215,51 @@ def test_roads_attributes(layers):
     roads = layers["roads"]
     assert len(roads) <= 5_000
     assert roads["road_id"].is_unique
-    assert set(roads["road_class"]) == {"arterial", "collector", "local"}
+    assert set(roads["road_class"]) == {"arterial", "collector", "local", "track"}
     assert set(roads["oneway"]) == {0, 1}
     assert (roads["speed_kmh"] > 0).all()
+    # README: rural tracks run at 30-40 km/h (spurs 30, through tracks 40), two-way
+    tracks = roads[roads["road_class"] == "track"]
+    assert tracks["speed_kmh"].between(30.0, 40.0).all()
+    assert (tracks["oneway"] == 0).all()
     # length-weighted: arterials are slower inside towns, but mostly fast
     length = roads.length
     mean_speed = (roads["speed_kmh"] * length).groupby(roads["road_class"]).sum() / length.groupby(
         roads["road_class"]).sum()
-    assert mean_speed["arterial"] > mean_speed["collector"] > mean_speed["local"]
+    assert mean_speed["arterial"] > mean_speed["collector"] > mean_speed["local"] > mean_speed["track"]
+
+
+def test_roads_reach_the_countryside(layers, pop):
+    # README: at least 97 % of the people (grid total) live within 500 m of a
+    # road.  Each populated cell's people are placed at its centre; the distance
+    # to the nearest road line is measured by shapely (GEOS) through an STRtree.
+    arr, _, transform = pop
+    rows, cols = np.nonzero(arr > 0)
+    people = arr[rows, cols].astype(np.float64)
+    x = transform.c + (cols + 0.5) * transform.a
+    y = transform.f + (rows + 0.5) * transform.e
+    roads = layers["roads"].geometry.values
+    (cell, _), dist = shapely.STRtree(roads).query_nearest(shapely.points(x, y), return_distance=True,
+                                                           all_matches=False)
+    nearest = np.full(len(people), np.inf)
+    nearest[cell] = dist
+    assert np.isfinite(nearest).all()
+    share_500 = people[nearest <= 500.0].sum() / people.sum()
+    assert share_500 >= 0.97, f"only {share_500:.2%} of the people live within 500 m of a road"
+    # spot check of the tree query: brute-force distances to every road for a sample of cells
+    pick = np.linspace(0, len(people) - 1, 25).astype(int)
+    brute = [shapely.distance(shapely.Point(x[i], y[i]), roads).min() for i in pick]
+    np.testing.assert_allclose(nearest[pick], brute, rtol=0, atol=1e-6)
+
+
+def test_roads_keep_off_parcels_and_rivers(layers):
+    # README: parcels lie off the roads; rural tracks do not cross the river or the burn
+    roads = layers["roads"]
+    parcels = layers["candidate_parcels"].geometry.values
+    p_idx, _ = shapely.STRtree(roads.geometry.values).query(parcels, predicate="dwithin", distance=8.0)
+    assert len(p_idx) == 0
+    rivers = layers["river"].union_all()
+    assert not roads[roads["road_class"] == "track"].intersects(rivers).any()
 
 
 def test_one_way_streets_are_an_opposed_pair(layers):
