@@ -173,3 +173,24 @@ def test_cli_run_of_one_tool_on_the_sample_layers(tmp_path):
     manifest = json.loads((tmp_path / "manifest.json").read_text(encoding="utf-8"))
     assert manifest["model"] == "cover-all"
     assert manifest["plan"]["people_left_out"] == pytest.approx(0.0, abs=1e-6)  # LSCP serves everyone coverable
+
+
+NETWORK_STUDY = SAMPLE / "tarrow_network_study.toml"
+
+
+@pytest.mark.skipif(not NETWORK_STUDY.exists(), reason="the network sample study is not present")
+def test_network_study_serves_within_the_travel_time(tmp_path):
+    import pyogrio
+
+    from geocover.toolbox.study import run_study
+
+    outcome, outputs = run_study(NETWORK_STUDY, out=tmp_path)
+    assert outcome.reach.rule.metric.value == "network" and outcome.reach.rule.limit == 480.0
+    demand = pyogrio.read_dataframe(outputs["layers"], layer="demand")
+    covered = demand[demand["status"] == "covered"]
+    assert len(covered) and (covered["nearest_time_s"] <= 480.0 + 1e-9).all()
+    assert demand.loc[demand["status"] != "covered", "nearest_time_s"].isna().all()
+    # people farther than max_snap from any road are reported as unreachable, not dropped
+    assert demand["people"].sum() == pytest.approx(outcome.demand.total)
+    unreachable = demand.loc[demand["status"] == "unreachable", "people"].sum()
+    assert unreachable == pytest.approx(outcome.plan.uncoverable_weight)
