@@ -33,3 +33,15 @@ def test_ci_runs_the_readme_test_command():
     test_cmd = quick.split("```sh")[2].split("```")[0].strip()
     ci = (REPO / ".ci" / "run").read_text(encoding="utf-8")
     assert test_cmd in ci.splitlines()
+
+
+def test_readme_python_example_runs(monkeypatch):
+    """The README's Python example is executed, from the repository folder, as a user would."""
+    text = (REPO / "README.md").read_text(encoding="utf-8")
+    code = text.split("```python", 1)[1].split("```", 1)[0]
+    monkeypatch.chdir(REPO)
+    namespace: dict = {}
+    exec(compile(code, "README.md", "exec"), namespace)
+    plan = namespace["plan"]
+    assert plan.status.value == "optimal"
+    assert int((namespace["reach"].role[plan.sites] == 0).sum()) == 6
