@@ -251,6 +251,7 @@ def demand_from_grid(
     --------
     >>> demand = demand_from_grid("pop.tif", band=1)  # doctest: +SKIP
     """
+    import rasterio.errors
     from pyproj import Transformer
     from affine import Affine
     from rasterio.enums import MaskFlags
@@ -351,10 +352,17 @@ def demand_from_grid(
         for row_off in range(0, height, wrows):
             h = min(wrows, height - row_off)
             win = Window(0, row_off, width, h)
-            raw = src.read(bidx, window=win)
+            try:
+                raw = src.read(bidx, window=win)
+                mask = src.read_masks(bidx, window=win) if use_mask else None
+            except rasterio.errors.RasterioIOError as exc:  # a truncated or damaged file opens but cannot be read
+                raise LayerError(
+                    f"{what}: cannot read rows {row_off}-{row_off + h - 1} of band {bidx} ({exc}); the file looks "
+                    "truncated or damaged: is it a complete GeoTIFF? Copy or export it again"
+                ) from None
             valid = None
-            if use_mask:
-                valid = src.read_masks(bidx, window=win) > 0
+            if mask is not None:
+                valid = mask > 0
             elif nodata is not None:
                 valid = ~np.isnan(raw) if (is_float and math.isnan(nodata)) else raw != nodata
             counts = raw.astype(np.float64) if (need_f64 and raw.dtype != np.float64) else raw
