@@ -438,7 +438,15 @@ def _land_use(
         if wr1 < wr0 or wc1 < wc0:
             data = np.zeros((0, 0), dtype=np.int64)
         else:
-            data = src.read(1, window=Window(wc0, wr0, wc1 - wc0 + 1, wr1 - wr0 + 1))
+            import rasterio.errors
+
+            try:
+                data = src.read(1, window=Window(wc0, wr0, wc1 - wc0 + 1, wr1 - wr0 + 1))
+            except rasterio.errors.RasterioIOError as exc:  # a truncated file opens but cannot be read
+                raise LayerError(
+                    f"land-use raster {mask.raster}: cannot read its cells ({exc}); the file looks truncated or "
+                    "damaged: is it a complete GeoTIFF? Copy or export it again"
+                ) from None
         nodata = src.nodata
         transform = src.transform
 
