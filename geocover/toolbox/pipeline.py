@@ -437,7 +437,7 @@ def input_files(params: Mapping[str, Any]) -> list[Path]:
         elif hasattr(value, "raster") and hasattr(value, "min_share"):
             walk(value.raster)
 
-    walk({k: v for k, v in params.items() if k != "output"})
+    walk({k: v for k, v in params.items() if k not in ("output", "out")})  # a tool's own output is not an input
     unique: list[Path] = []
     for path in found:
         resolved = path.resolve()
