@@ -16,7 +16,7 @@ import re
 
 import pytest
 
-from _studykit import STUDY, edit, write_study
+from _studykit import STUDY, edit, make_tiny, write_study
 
 LAYERS = ("plan_sites", "service_areas", "covered_area", "demand", "uncovered", "uncovered_areas", "screened_sites")
 
@@ -30,15 +30,17 @@ def _strip_times(value):
     return value
 
 
-@pytest.fixture
-def two_runs(tiny, monkeypatch):
+@pytest.fixture(scope="module")
+def two_runs(tmp_path_factory):
     from geocover.toolbox.study import run_study
 
-    monkeypatch.setenv("OGR_CURRENT_DATE", "2026-01-01T00:00:00Z")  # pins GDAL's gpkg_contents timestamps
+    folder = make_tiny(tmp_path_factory.mktemp("determinism"))["dir"]
     # a trade-off curve and coarsening too, so that every step of the flow is exercised
-    study = write_study(tiny["dir"], edit(STUDY, ('grid = "pop.tif"', 'grid = "pop.tif"\ncoarsen = 2'), ("sites = 2", "sites = 2\ntradeoff = 3")))
-    outs = [tiny["dir"] / "run_a", tiny["dir"] / "run_b"]
-    outcomes = [run_study(study, out)[0] for out in outs]
+    study = write_study(folder, edit(STUDY, ('grid = "pop.tif"', 'grid = "pop.tif"\ncoarsen = 2'), ("sites = 2", "sites = 2\ntradeoff = 3")))
+    outs = [folder / "run_a", folder / "run_b"]
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv("OGR_CURRENT_DATE", "2026-01-01T00:00:00Z")  # pins GDAL's gpkg_contents timestamps
+        outcomes = [run_study(study, out)[0] for out in outs]
     return outs, outcomes
 
 

@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from _studykit import STUDY, assert_clean_exit, edit, invoke, snapshot, write_study
+from _studykit import STUDY, assert_clean_exit, edit, invoke, make_tiny, snapshot, write_study
 
 # ----------------------------------------------------------------------------- interrupt
 
@@ -43,13 +43,24 @@ WRITE_POINTS = [
 ]
 
 
+@pytest.fixture(scope="module")
+def previous_output(tmp_path_factory):
+    """The tiny study's complete output, made once; tests copy it next to their own inputs."""
+    from geocover.toolbox.study import run_study
+
+    folder = make_tiny(tmp_path_factory.mktemp("previous"))["dir"]
+    run_study(write_study(folder), folder / "out")
+    return folder / "out"
+
+
 @pytest.mark.parametrize("module,name", WRITE_POINTS, ids=[n for _, n in WRITE_POINTS])
-def test_interrupt_while_writing_keeps_the_previous_complete_output(tiny, monkeypatch, module, name):
+def test_interrupt_while_writing_keeps_the_previous_complete_output(tiny, monkeypatch, previous_output, module, name):
+    import shutil
+
     from geocover.toolbox.study import run_study
 
     study = write_study(tiny["dir"])
-    out = tiny["dir"] / "out"
-    run_study(study, out)
+    out = shutil.copytree(previous_output, tiny["dir"] / "out")
     before = snapshot(out)
     assert sorted(before) == ["manifest.json", "report.html", "study.gpkg"]
     # a second run with another model would change every file; interrupt it while writing
@@ -81,15 +92,15 @@ def test_interrupt_during_solving_through_the_cli_says_so(tiny, monkeypatch):
     assert not (tiny["dir"] / "out").exists() or list((tiny["dir"] / "out").rglob("*")) == [], out
 
 
-def test_the_commit_rolls_forward_when_interrupted_between_renames(tiny, monkeypatch):
+def test_the_commit_rolls_forward_when_interrupted_between_renames(tiny, monkeypatch, previous_output):
     """A Ctrl-C between the final renames must not leave a mix of old and new files."""
     import os
+    import shutil
 
     from geocover.toolbox.study import run_study
 
     study = write_study(tiny["dir"])
-    out = tiny["dir"] / "out"
-    run_study(study, out)
+    out = shutil.copytree(previous_output, tiny["dir"] / "out")
     old_manifest = json.loads((out / "manifest.json").read_text())
     write_study(tiny["dir"], edit(STUDY, ("sites = 2", "sites = 1")))
     real = os.replace

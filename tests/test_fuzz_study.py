@@ -1,7 +1,7 @@
 """Fuzz the study file (hypothesis): whatever the values, `geocover study` exits 0, 1 or 2 with a
 message, and never with a traceback or an unexpected (non-geocover) exception.
 
-Bounded: 50 examples of one or two changed keys on the tiny study, each a
+Bounded: 30 examples of one or two changed keys on the tiny study, each a
 CLI run in-process.  Values are drawn per key type (paths from a pool of real
 and missing layers, distances with odd units and signs, shares, counts incl.
 nan and inf, filters from the filter alphabet) mixed with values of any TOML
@@ -152,7 +152,7 @@ def layers(tmp_path_factory):
     return make_tiny(tmp_path_factory.mktemp("fuzz"))
 
 
-@settings(max_examples=50, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
 @given(changes())
 def test_any_study_file_ends_in_a_message_never_a_traceback(layers, change):
     import copy
