@@ -55,6 +55,12 @@ def _as_clip(clip: Any) -> Any:
     return geom
 
 
+def _is_area(value: Any) -> bool:
+    import shapely
+
+    return isinstance(value, shapely.Geometry) or hasattr(value, "geometry")
+
+
 def _chosen(chosen: Any, m: int) -> np.ndarray:
     if chosen is None:
         return np.arange(m, dtype=np.int64)
@@ -119,7 +125,7 @@ def _geodesic_circles(sites: Sites, chosen: np.ndarray, radius: float, n_vertice
 
 def service_areas(
     source: Reach | tuple[Sites, Sequence[int], float],
-    chosen: Sequence[int] | None = None,
+    chosen: Sequence[int] | Any | None = None,
     clip: Any = None,
     *,
     quad_segs: int = 32,
@@ -134,9 +140,11 @@ def service_areas(
         chosen site indices and a planar service distance in metres.
     chosen : sequence of int, optional
         Site indices (with a Reach); all sites when omitted.  With a tuple
-        source the tuple's indices are used.
+        source the tuple's indices are used.  A geometry given here (as in
+        ``service_areas((sites, chosen, limit_m), study_area)``) is taken as
+        ``clip``.
     clip : shapely geometry, optional
-        The study area; planar circles are clipped to it.
+        The study area; the polygons are clipped to it.
     quad_segs : int
         Segments per quarter circle of planar circles (geodesic circles use
         ``8 * quad_segs`` vertices).
@@ -146,6 +154,8 @@ def service_areas(
     numpy.ndarray of shapely geometries
         In the order of ``chosen``.
     """
+    if clip is None and chosen is not None and _is_area(chosen):
+        chosen, clip = None, chosen
     if isinstance(source, Reach):
         reach = source
         if reach.sites is None:

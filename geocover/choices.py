@@ -32,28 +32,30 @@ class GridValues(str, enum.Enum):
 class ClipMode(str, enum.Enum):
     """How cells on the edge of a study area are treated."""
 
-    CENTRE = "centre"  #: a cell belongs when its centre is inside
-    FRACTION = "fraction"  #: edge cells count by the share of their area inside
+    CENTRE = "centre"  #: a cell counts wholly when its centre lies inside
+    FRACTION = "fraction"  #: a cell counts by the share of its area inside
 
 
 class BadValues(str, enum.Enum):
     """What to do with negative or non-finite population values."""
 
-    ERROR = "error"
-    ZERO = "zero"
+    ERROR = "error"  #: stop with an error naming the band, the number of bad cells and the first one
+    ZERO = "zero"  #: count them as zero people and say so in the summary
 
 
 class Placement(str, enum.Enum):
     """Where an area's population is placed."""
 
-    CENTROID = "centroid"
-    INSIDE = "inside"  #: a point guaranteed inside the polygon
-    SPREAD = "spread"  #: split over a weight raster or a lattice inside the polygon
+    CENTROID = "centroid"  #: the polygon's centroid (may fall outside a concave polygon)
+    INSIDE = "inside"  #: a point guaranteed inside the polygon (shapely.point_on_surface)
+    SPREAD = "spread"  #: many points inside, by a weight raster or a regular lattice
 
 
 class LatticeShape(str, enum.Enum):
-    SQUARE = "square"
-    HEX = "hex"
+    """Arrangement of generated candidate points."""
+
+    SQUARE = "square"  #: rows and columns ``spacing`` apart
+    HEX = "hex"  #: rows ``spacing * sqrt(3) / 2`` apart, every other row shifted by half a spacing
 
 
 class ServiceMetric(str, enum.Enum):

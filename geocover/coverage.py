@@ -55,6 +55,7 @@ BYTES_PER_PAIR = 15.0
 
 _STRIPS_PER_LIMIT = 8  # strip height = limit / 8: about 10 % more candidates than pairs
 _CANDIDATES_PER_BLOCK = 131_072  # candidates per block: small temporaries stay in cache and off fresh pages
+_SITES_PER_BLOCK = 32_768  # sites whose strip ranges are computed at once
 _PAIRS_PER_CHUNK = 4_000_000  # rows per chunk are cut so that a chunk holds about this many pairs
 
 
@@ -129,52 +130,58 @@ def _planar_chunk(dxy: np.ndarray, sxy: np.ndarray, limit: float) -> tuple[np.nd
     pad = 8.0 * float(np.spacing(abs(skey[-1]) + width)) + 1e-9 * limit
 
     # for each selected site, the strips its disc can touch and the chord half-width over each
-    ssx, ssy = sx[sel], sy[sel]
-    strip_s = np.floor((ssy - y0) / height)
+    # (in blocks of sites, so that the per-strip arrays stay small when there are very many sites)
     offsets = np.arange(-k - 1, k + 2, dtype=np.float64)
-    strip = strip_s[:, None] + offsets[None, :]  # (m_sel, J), site-major when flattened
-    bottom = y0 + strip * height
-    gap = np.maximum(np.maximum(bottom - ssy[:, None], ssy[:, None] - (bottom + height)), 0.0)
-    valid = (strip >= 0) & (strip < n_strips) & (gap <= limit)
-    half = np.sqrt(np.maximum(limit * limit - gap * gap, 0.0))
-    lo_off = np.clip(ssx[:, None] - half - x0 + limit, 0.0, span)
-    hi_off = np.clip(ssx[:, None] + half - x0 + limit, 0.0, span)
-    lo = np.searchsorted(skey, (strip * width + lo_off - pad).ravel(), side="left")
-    hi = np.searchsorted(skey, (strip * width + hi_off + pad).ravel(), side="right")
-    count = np.where(valid.ravel(), hi - lo, 0)
-    count[count < 0] = 0
-    ranges = np.flatnonzero(count)
-    lo, count = lo[ranges], count[ranges]
-    range_site = sel[ranges // len(offsets)]
-
-    # blocks of whole ranges, each with at most ~_CANDIDATES_PER_BLOCK candidates (unless one range is bigger)
-    cum = np.cumsum(count)
-    cuts = np.searchsorted(cum, np.arange(_CANDIDATES_PER_BLOCK, int(cum[-1]) if len(cum) else 0, _CANDIDATES_PER_BLOCK), side="left") + 1
-    bounds = np.unique(np.concatenate([[0], cuts, [len(count)]]))
+    tol = 1e-9 * (abs(y0) + abs(y1) + limit)
     lim_sq = limit * limit * (1.0 + 8.0 * np.finfo(np.float64).eps)
     rows_parts, cols_parts, vals_parts = [], [], []
-    for a, b in zip(bounds[:-1], bounds[1:]):
-        if b <= a:
-            continue
-        c_lo, c_n, c_site = lo[a:b], count[a:b], range_site[a:b]
-        total = int(c_n.sum())
-        idx_t = np.int32 if total < 2**31 and n < 2**31 else np.int64
-        first = np.cumsum(c_n) - c_n
-        pos = np.repeat((c_lo - first).astype(idx_t), c_n) + np.arange(total, dtype=idx_t)
-        site = np.repeat(c_site.astype(np.int32), c_n)
-        ddx = sdx[pos] - sx[site]
-        d2 = ddx * ddx
-        del ddx
-        ddy = sdy[pos] - sy[site]
-        d2 += ddy * ddy
-        del ddy
-        near = np.flatnonzero(d2 <= lim_sq)
-        dist = np.sqrt(d2[near])
-        inside = dist <= limit  # the documented rule: float64 sqrt(dx^2 + dy^2) <= limit
-        near = near[inside]
-        rows_parts.append(order[pos[near]].astype(np.int32 if n < 2**31 else np.int64))
-        cols_parts.append(site[near])
-        vals_parts.append(dist[inside])
+    for s0 in range(0, len(sel), _SITES_PER_BLOCK):
+        sel_b = sel[s0 : s0 + _SITES_PER_BLOCK]
+        ssx, ssy = sx[sel_b], sy[sel_b]
+        strip_s = np.floor((ssy - y0) / height)
+        strip = strip_s[:, None] + offsets[None, :]  # (m_sel, J), site-major when flattened
+        bottom = y0 + strip * height
+        # vertical gap from the site to the strip, made a little smaller so that rounding in the
+        # strip assignment can only widen the measured chord (the exact check comes later)
+        gap = np.maximum(np.maximum(bottom - ssy[:, None], ssy[:, None] - (bottom + height)) - tol, 0.0)
+        valid = (strip >= 0) & (strip < n_strips) & (gap <= limit)
+        half = np.sqrt(np.maximum(limit * limit - gap * gap, 0.0))
+        lo_off = np.clip(ssx[:, None] - half - x0 + limit, 0.0, span)
+        hi_off = np.clip(ssx[:, None] + half - x0 + limit, 0.0, span)
+        lo = np.searchsorted(skey, (strip * width + lo_off - pad).ravel(), side="left")
+        hi = np.searchsorted(skey, (strip * width + hi_off + pad).ravel(), side="right")
+        count = np.where(valid.ravel(), hi - lo, 0)
+        count[count < 0] = 0
+        ranges = np.flatnonzero(count)
+        lo, count = lo[ranges], count[ranges]
+        range_site = sel_b[ranges // len(offsets)]
+
+        # blocks of whole ranges, each with at most ~_CANDIDATES_PER_BLOCK candidates (unless one range is bigger)
+        cum = np.cumsum(count)
+        cuts = np.searchsorted(cum, np.arange(_CANDIDATES_PER_BLOCK, int(cum[-1]) if len(cum) else 0, _CANDIDATES_PER_BLOCK), side="left") + 1
+        bounds = np.unique(np.concatenate([[0], cuts, [len(count)]]))
+        for a, b in zip(bounds[:-1], bounds[1:]):
+            if b <= a:
+                continue
+            c_lo, c_n, c_site = lo[a:b], count[a:b], range_site[a:b]
+            total = int(c_n.sum())
+            idx_t = np.int32 if total < 2**31 and n < 2**31 else np.int64
+            first = np.cumsum(c_n) - c_n
+            pos = np.repeat((c_lo - first).astype(idx_t), c_n) + np.arange(total, dtype=idx_t)
+            site = np.repeat(c_site.astype(np.int32), c_n)
+            ddx = sdx[pos] - sx[site]
+            d2 = ddx * ddx
+            del ddx
+            ddy = sdy[pos] - sy[site]
+            d2 += ddy * ddy
+            del ddy
+            near = np.flatnonzero(d2 <= lim_sq)
+            dist = np.sqrt(d2[near])
+            inside = dist <= limit  # the documented rule: float64 sqrt(dx^2 + dy^2) <= limit
+            near = near[inside]
+            rows_parts.append(order[pos[near]].astype(np.int32 if n < 2**31 else np.int64))
+            cols_parts.append(site[near])
+            vals_parts.append(dist[inside])
     rows = np.concatenate(rows_parts) if rows_parts else np.zeros(0, np.int32)
     cols = np.concatenate(cols_parts) if cols_parts else np.zeros(0, np.int32)
     vals = np.concatenate(vals_parts) if vals_parts else np.zeros(0, np.float64)
@@ -187,26 +194,38 @@ def _planar_chunk(dxy: np.ndarray, sxy: np.ndarray, limit: float) -> tuple[np.nd
     return csr.indptr.astype(np.int64), csr.indices.astype(np.int32, copy=False), csr.data
 
 
-def _assemble(parts: list[tuple[np.ndarray, np.ndarray, np.ndarray]], n: int, m: int) -> sp.csr_matrix:
-    """Join chunk CSR triples in row order, freeing each chunk as it is copied."""
-    nnz = int(sum(len(p[1]) for p in parts))
-    idx_t = np.int32 if nnz < 2**31 and m < 2**31 else np.int64
-    indptr = np.zeros(n + 1, dtype=idx_t)
-    indices = np.empty(nnz, dtype=idx_t)
-    data = np.empty(nnz, dtype=np.float64)
-    row = 0
+def _assemble(parts: Any, bounds: list[tuple[int, int]], n: int, m: int, estimate: int) -> sp.csr_matrix:
+    """Write chunk CSR triples, in row order, straight into arrays sized from the estimate.
+
+    The arrays are allocated once (``estimate`` + 5 %) and grown only if the
+    estimate was short; pages past the last pair are never touched, so the
+    relation costs its own size plus one chunk.
+    """
+    cap = int(estimate * 1.05) + 65_536
+    idx_t = np.int32 if m < 2**31 else np.int64
+    indices = np.empty(cap, dtype=idx_t)
+    data = np.empty(cap, dtype=np.float64)
+    indptr = np.zeros(n + 1, dtype=np.int64)
     at = 0
-    parts.reverse()
-    while parts:
-        ptr, ind, val = parts.pop()
-        rows = len(ptr) - 1
-        indptr[row + 1 : row + rows + 1] = ptr[1:] + at
-        indices[at : at + len(ind)] = ind
-        data[at : at + len(val)] = val
-        row += rows
-        at += len(ind)
+    for (a, b), (ptr, ind, val) in zip(bounds, parts):
+        k = len(ind)
+        if at + k > cap:
+            cap = max(2 * cap, at + k)
+            logger.debug("planar coverage: the pair estimate was short; growing to %d", cap)
+            grown_i, grown_d = np.empty(cap, dtype=idx_t), np.empty(cap, dtype=np.float64)
+            grown_i[:at], grown_d[:at] = indices[:at], data[:at]
+            indices, data = grown_i, grown_d
+        indices[at : at + k] = ind
+        data[at : at + k] = val
+        indptr[a + 1 : b + 1] = ptr[1:] + at
+        at += k
         del ptr, ind, val
-    mat = sp.csr_matrix((data, indices, indptr), shape=(n, m), copy=False)
+    if at < 2**31:
+        indptr = indptr.astype(np.int32)
+        indices = indices[:at]
+    else:
+        indices = indices[:at].astype(np.int64)
+    mat = sp.csr_matrix((data[:at], indices, indptr), shape=(n, m), copy=False)
     # every (row, column) pair is produced once and each row's columns are increasing (see _planar_chunk)
     mat.has_canonical_format = True
     return mat
@@ -367,11 +386,10 @@ def reach_planar(
         return _planar_chunk(dxy[ab[0] : ab[1]], sxy, limit)
 
     if int(threads) == 1 or len(bounds) == 1:
-        parts = [run(ab) for ab in bounds]
+        mat = _assemble((run(ab) for ab in bounds), bounds, n, m, est)
     else:
         with ThreadPoolExecutor(max_workers=int(threads)) as pool:
-            parts = list(pool.map(run, bounds))
-    mat = _assemble(parts, n, m)
+            mat = _assemble(pool.map(run, bounds), bounds, n, m, est)
     return _reach(mat, demand, sites, rule)
 
 

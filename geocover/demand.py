@@ -14,14 +14,16 @@ import enum
 import logging
 import math
 import time
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from .crs import as_crs, choose_working_crs, crs_label, require_projected
+from .choices import BadValues, ClipMode, GridValues, Placement
 from .errors import CRSError, InputError, LayerError, ParameterError
-from .grid import apply_affine
+from .grid import PointBuffer, apply_affine
 from .values import Demand
 
 if TYPE_CHECKING:
@@ -41,35 +43,6 @@ logger = logging.getLogger(__name__)
 
 #: cells per window when ``window_rows`` is not given (about 32 MB of float64)
 WINDOW_CELLS = 1 << 22
-
-
-class GridValues(str, enum.Enum):
-    """What the numbers in a population band mean."""
-
-    COUNT = "count"  #: people per cell
-    DENSITY_KM2 = "density_km2"  #: people per square kilometre
-
-
-class ClipMode(str, enum.Enum):
-    """How cells on the edge of a study area count."""
-
-    CENTRE = "centre"  #: a cell counts wholly when its centre lies inside
-    FRACTION = "fraction"  #: a cell counts by the share of its area inside
-
-
-class BadValues(str, enum.Enum):
-    """What to do with negative or non-finite counts."""
-
-    ERROR = "error"  #: stop with an error naming the band, the number of bad cells and the first one
-    ZERO = "zero"  #: count them as zero people and say so in the summary
-
-
-class Placement(str, enum.Enum):
-    """Where the people of a polygon go."""
-
-    CENTROID = "centroid"  #: the polygon's centroid (may fall outside a concave polygon)
-    INSIDE = "inside"  #: a point guaranteed inside the polygon (shapely.point_on_surface)
-    SPREAD = "spread"  #: many points inside, by a weight raster or a regular lattice
 
 
 def _choice(enum_cls: type[enum.Enum], value: Any, param: str) -> Any:
@@ -251,7 +224,6 @@ def demand_from_grid(
     --------
     >>> demand = demand_from_grid("pop.tif", band=1)  # doctest: +SKIP
     """
-    import rasterio.errors
     from pyproj import Transformer
     from affine import Affine
     from rasterio.enums import MaskFlags
@@ -336,91 +308,128 @@ def demand_from_grid(
 
         # float64 copies only when values change; a plain float32 count grid is masked in place
         need_f64 = scaled or values is GridValues.DENSITY_KM2 or clip_geom is not None or factor > 1
+        can_be_bad = is_float or scaled or np.issubdtype(np.dtype(src.dtypes[bidx - 1]), np.signedinteger)
         const_fp = None
         if same_crs and factor == 1:
             const_fp = half_diagonal(transform, 1)
 
-        chunks: list[tuple[np.ndarray, ...]] = []
+        out = PointBuffer(0)
+        sized = False
         people_in = 0.0
         people_clip_out = 0.0
         cells_clip_out = 0
         cells_nodata = 0
         cells_bad = 0
         first_bad: tuple[int, int] | None = None
-        cells_zero = 0
 
-        for row_off in range(0, height, wrows):
+        # Windows are read one ahead in a helper thread (GDAL decodes while numpy works on the
+        # previous window; the dataset is only ever used by that thread), into two buffers that
+        # are reused: fresh memory is slow to touch, reused memory is not.
+        starts = list(range(0, height, wrows))
+        buffers: list[np.ndarray | None] = [None, None]
+
+        def fetch(j: int) -> tuple[np.ndarray, np.ndarray | None]:
+            row_off = starts[j]
             h = min(wrows, height - row_off)
             win = Window(0, row_off, width, h)
-            try:
-                raw = src.read(bidx, window=win)
-                mask = src.read_masks(bidx, window=win) if use_mask else None
-            except rasterio.errors.RasterioIOError as exc:  # a truncated or damaged file opens but cannot be read
-                raise LayerError(
-                    f"{what}: cannot read rows {row_off}-{row_off + h - 1} of band {bidx} ({exc}); the file looks "
-                    "truncated or damaged: is it a complete GeoTIFF? Copy or export it again"
-                ) from None
-            valid = None
-            if mask is not None:
-                valid = mask > 0
-            elif nodata is not None:
-                valid = ~np.isnan(raw) if (is_float and math.isnan(nodata)) else raw != nodata
-            counts = raw.astype(np.float64) if (need_f64 and raw.dtype != np.float64) else raw
-            if scaled:
-                counts = counts * (1.0 if scale is None else scale) + (0.0 if offset is None else offset)
-            if valid is not None:
-                cells_nodata += int(valid.size - np.count_nonzero(valid))
-                counts[~valid] = 0.0
-            if is_float or scaled:
-                bad = ~np.isfinite(counts)
-                bad |= counts < 0
-            else:
-                bad = counts < 0 if np.issubdtype(raw.dtype, np.signedinteger) else None
-            if bad is not None:
-                nbad = int(np.count_nonzero(bad))
-                if nbad:
-                    if first_bad is None:
-                        r, c = np.argwhere(bad)[0]
-                        first_bad = (row_off + int(r), int(c))
-                    cells_bad += nbad
-                    counts[bad] = 0.0
-            if cells_bad and bad_values is BadValues.ERROR:
-                continue  # keep counting the bad cells for the error message
-            if values is GridValues.DENSITY_KM2:
-                if ellipsoid is not None:
-                    rows = np.arange(row_off, row_off + h)
-                    counts *= (geographic_row_areas(transform, rows, *ellipsoid) / 1e6)[:, None]
-                else:
-                    counts *= area_km2_const
-            strip_total = float(counts.sum(dtype=np.float64))
-            people_in += strip_total
-            if clip_geom is not None:
-                import shapely
+            buf = buffers[j % 2]
+            if buf is None:
+                buf = buffers[j % 2] = np.empty((min(wrows, height), width), dtype=src.dtypes[bidx - 1])
+            raw = src.read(bidx, window=win, out=buf[:h])
+            return raw, (src.read_masks(bidx, window=win) if use_mask else None)
 
-                wt = transform @ Affine.translation(0, row_off)
-                part = shapely.clip_by_rect(clip_geom, *_window_box(wt, h, width))
-                share = clip_fractions(part, wt, (h, width), fraction=frac_mode)
-                kept = counts * share
-                out_people = strip_total - float(kept.sum())
-                cells_clip_out += int(np.count_nonzero((counts > 0) & (share < 1.0)))
-                people_clip_out += out_people
-                counts = kept
-            cells_zero += int(counts.size - np.count_nonzero(counts > 0))
-            pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
-            if len(pts) == 0:
-                continue
-            x, y = pts.x, pts.y
-            if const_fp is not None:
-                fp = np.full(len(pts), const_fp)
-            else:
+        pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="geocover-read")
+        try:
+            pending = pool.submit(fetch, 0) if starts else None
+            for j, row_off in enumerate(starts):
+                raw, mask = pending.result()  # type: ignore[union-attr]
+                pending = pool.submit(fetch, j + 1) if j + 1 < len(starts) else None
+                h = raw.shape[0]
+                nod = None
+                if mask is not None:
+                    nod = mask == 0
+                elif nodata is not None:
+                    nod = np.isnan(raw) if (is_float and math.isnan(nodata)) else raw == nodata
+                counts = raw.astype(np.float64) if (need_f64 and raw.dtype != np.float64) else raw
+                if scaled:
+                    counts = counts * (1.0 if scale is None else scale) + (0.0 if offset is None else offset)
+                if nod is not None:
+                    n_nod = int(np.count_nonzero(nod))
+                    if n_nod:
+                        cells_nodata += n_nod
+                        np.copyto(counts, 0, where=nod)
+                    del nod
+                total = None
+                if can_be_bad:
+                    # two reductions without temporaries tell a clean window: min >= 0 (NaN propagates) and a finite sum
+                    lowest = counts.min() if counts.size else 0
+                    total = float(counts.sum(dtype=np.float64)) if lowest >= 0 else math.nan
+                    if not math.isfinite(total):
+                        bad = ~(counts >= 0)  # negative or NaN
+                        if is_float or scaled:
+                            bad |= np.isinf(counts)
+                        nbad = int(np.count_nonzero(bad))
+                        if nbad == 0:
+                            raise InputError(
+                                f"{what}, band {bidx}: the counts in rows {row_off}-{row_off + h - 1} sum past the "
+                                "largest float; are these people counts? Rescale the grid"
+                            )
+                        if first_bad is None:
+                            r, c = np.argwhere(bad)[0]
+                            first_bad = (row_off + int(r), int(c))
+                        cells_bad += nbad
+                        np.copyto(counts, 0, where=bad)
+                        total = None
+                        del bad
+                if cells_bad and bad_values is BadValues.ERROR:
+                    continue  # keep counting the bad cells for the error message
+                if values is GridValues.DENSITY_KM2:
+                    if ellipsoid is not None:
+                        rows = np.arange(row_off, row_off + h)
+                        counts *= (geographic_row_areas(transform, rows, *ellipsoid) / 1e6)[:, None]
+                    else:
+                        counts *= area_km2_const
+                strip_total = float(counts.sum(dtype=np.float64)) if (total is None or values is GridValues.DENSITY_KM2) else total
+                people_in += strip_total
+                if clip_geom is not None:
+                    import shapely
+
+                    wt = transform @ Affine.translation(0, row_off)
+                    part = shapely.clip_by_rect(clip_geom, *_window_box(wt, h, width))
+                    share = clip_fractions(part, wt, (h, width), fraction=frac_mode)
+                    kept = counts * share
+                    out_people = strip_total - float(kept.sum())
+                    cells_clip_out += int(np.count_nonzero((counts > 0) & (share < 1.0)))
+                    people_clip_out += out_people
+                    counts = kept
+                if const_fp is not None:
+                    # plain cells in the grid's own CRS: centres straight into the output
+                    flat = np.flatnonzero(counts > 0)
+                    if not sized:
+                        out.reserve(_capacity_guess(len(flat), h, height, width, factor))
+                        sized = True
+                    if len(flat):
+                        out.reserve(len(flat), _expected_points(out.n + len(flat), row_off + h, height))
+                        out.add_cells(flat, row_off * width, counts.reshape(-1)[flat], transform, width, const_fp)
+                    del flat
+                    continue
+                pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
+                if not sized:
+                    out.reserve(_capacity_guess(len(pts), h, height, width, factor))
+                    sized = True
+                if len(pts) == 0:
+                    continue
+                out.reserve(len(pts), _expected_points(out.n + len(pts), row_off + h, height))
+                x, y = pts.x, pts.y
                 cx, cy = block_corners(transform, pts.row0, pts.col0, factor)
                 if transformer is not None:
                     x, y = transformer.transform(x, y)
                     cx, cy = transformer.transform(cx, cy)
                     x, y, cx, cy = (np.asarray(v, dtype=np.float64) for v in (x, y, cx, cy))
-                fp = farthest_corner(x, y, cx, cy)
-            chunks.append((x, y, pts.weight, pts.unit, fp))
+                out.add_points(x, y, pts.weight, pts.unit, farthest_corner(x, y, cx, cy))
 
+        finally:
+            pool.shutdown(wait=True)  # before the dataset closes
         if cells_bad and bad_values is BadValues.ERROR:
             r, c = first_bad  # type: ignore[misc]
             fx, fy = apply_affine(transform, c + 0.5, r + 0.5)
@@ -432,7 +441,7 @@ def demand_from_grid(
         if cells_bad:
             notes.append(f"counted {cells_bad} negative or non-finite cell(s) as zero (bad_values='zero')")
 
-    xy, weight, unit, footprint = _assemble(chunks)
+    xy, weight, unit, footprint = out.finish()
     people_out = float(weight.sum())
     dropped: dict[str, dict[str, Any]] = {}
     if cells_nodata:
@@ -451,12 +460,11 @@ def demand_from_grid(
         "grid_shape": [height, width],
         "coarsen": factor,
         "clip_mode": clip_mode.value if clip_geom is not None else None,
-        "window_rows": wrows,
+        "window_rows": min(wrows, height),
         "people_in": people_in,
         "people_out": people_out,
         "points": int(len(weight)),
         "dropped": dropped,
-        "cells_empty": cells_zero,
         "balance": people_in - people_out - sum(d["people"] for d in dropped.values()),
         "seconds": round(time.perf_counter() - started, 3),
         "notes": notes,
@@ -471,29 +479,16 @@ def _window_box(wt: Any, h: int, w: int) -> tuple[float, float, float, float]:
     return float(xs.min()), float(ys.min()), float(xs.max()), float(ys.max())
 
 
-def _assemble(chunks: list[tuple[np.ndarray, ...]]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Concatenate per-window arrays into the output, freeing each window's arrays as it is copied.
+def _expected_points(so_far: int, rows_done: int, height: int) -> int:
+    """Points expected for the whole grid at the rate seen so far, with a tenth more (a growth hint)."""
+    return int(1.1 * so_far * height / max(rows_done, 1)) + 1024
 
-    Peak memory is the output plus one window, not twice the output.
-    """
-    n = sum(len(ch[2]) for ch in chunks)
-    xy = np.empty((n, 2), dtype=np.float64)
-    weight = np.empty(n, dtype=np.float64)
-    unit = np.empty(n, dtype=np.int64)
-    footprint = np.empty(n, dtype=np.float64)
-    pos = 0
-    chunks.reverse()
-    while chunks:
-        x, y, w, u, fp = chunks.pop()
-        k = len(w)
-        xy[pos : pos + k, 0] = x
-        xy[pos : pos + k, 1] = y
-        weight[pos : pos + k] = w
-        unit[pos : pos + k] = u
-        footprint[pos : pos + k] = fp
-        pos += k
-        del x, y, w, u, fp
-    return xy, weight, unit, footprint
+
+def _capacity_guess(first: int, first_rows: int, height: int, width: int, factor: int) -> int:
+    """Room for the points of the whole grid, judged from the first window (untouched room is free)."""
+    most = -(-height // factor) * -(-width // factor)
+    share = first / max(-(-first_rows // factor) * -(-width // factor), 1)
+    return int(min(most, max(1.25 * share * most, 4096)))
 
 
 # --------------------------------------------------------------------------- areas and points
@@ -539,7 +534,7 @@ def _numeric_field(frame: "gpd.GeoDataFrame", field: str, what: str, param: str)
     if pd.api.types.is_bool_dtype(column) or not pd.api.types.is_numeric_dtype(column):
         raise LayerError(
             f"{what}: field {field!r} of {source} is not numeric (type {column.dtype}); store the people as "
-            f"numbers (convert the field, e.g. CAST({field} AS REAL) in the GIS)"
+            "numbers (convert the field, e.g. CAST({field} AS REAL) in the GIS)"
         )
     values = column.to_numpy(dtype=np.float64, na_value=np.nan)
     missing = np.flatnonzero(np.isnan(values))
@@ -827,8 +822,10 @@ class _RasterCells:
         self.same = self.crs.equals(work)
         self.to_src = None if self.same else Transformer.from_crs(work, self.crs, always_xy=True)
         self.to_work = None if self.same else Transformer.from_crs(self.crs, work, always_xy=True)
-        self.nodata = self.src.nodata
-        self.warned = False
+        t = self.src.transform
+        if t.b or t.d:
+            self.src.close()
+            raise LayerError(f"weight raster {path}: the grid is rotated; warp it north-up (gdalwarp) first")
 
     def close(self) -> None:
         self.src.close()

@@ -252,6 +252,14 @@ class _Parser:
         raise self.fail(nxt, "a comparison (==, !=, <, <=, >, >=, in, not in, is null)")
 
 
+def _comparisons(node: _Node) -> list[_Compare]:
+    if isinstance(node, _Compare):
+        return [node]
+    if isinstance(node, _Bool):
+        return _comparisons(node.left) + _comparisons(node.right)
+    return _comparisons(node.operand)
+
+
 def _fields(node: _Node, out: list[str]) -> None:
     if isinstance(node, _Compare):
         if node.field not in out:
@@ -301,11 +309,11 @@ class Filter:
             fields) or a value's type does not fit the field's.
         """
         columns = [str(c) for c in frame.columns if str(c) != getattr(frame, "_geometry_column_name", "geometry")]
-        for name in self.fields:
+        for node in _comparisons(self.tree):
+            name = node.field
             if name not in frame.columns:
-                pos = self.text.find(name)
                 raise _error(
-                    self.text, max(pos, 0),
+                    self.text, node.pos,
                     f"layer {layer} has no field {name!r}; its fields are: {', '.join(columns) or 'none'}",
                     self.param,
                 )
@@ -339,19 +347,26 @@ class Filter:
             present = ~missing
             result = np.zeros(len(column), dtype=bool)
             sub = data[present]
-            if node.op == "==":
-                got = sub == value
-            elif node.op == "!=":
-                got = sub != value
-            elif node.op == "<":
-                got = sub < value
-            elif node.op == "<=":
-                got = sub <= value
-            elif node.op == ">":
-                got = sub > value
-            else:
-                got = sub >= value
-            result[present] = np.asarray(got, dtype=bool)
+            try:
+                if node.op == "==":
+                    got = sub == value
+                elif node.op == "!=":
+                    got = sub != value
+                elif node.op == "<":
+                    got = sub < value
+                elif node.op == "<=":
+                    got = sub <= value
+                elif node.op == ">":
+                    got = sub > value
+                else:
+                    got = sub >= value
+                result[present] = np.asarray(got, dtype=bool)
+            except (TypeError, ValueError):
+                raise _error(
+                    self.text, node.pos,
+                    f"field {node.field!r} of layer {layer} ({column.dtype}) cannot be compared with {value!r}",
+                    self.param,
+                ) from None
         return result & ~missing
 
     def _check_types(self, node: _Compare, column: Any, layer: str) -> None:

@@ -31,7 +31,9 @@ __all__ = [
     "BlockPoints",
     "block_sums",
     "block_points",
+    "PointBuffer",
     "apply_affine",
+    "cell_centres",
     "block_corners",
     "farthest_corner",
     "half_diagonal",
@@ -132,15 +134,23 @@ def block_points(
     """
     counts = np.asarray(counts)
     a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
+    h, w = counts.shape
     if factor == 1:
         flat = np.flatnonzero(counts > 0)
-        h, w = counts.shape
-        r, cc = np.divmod(flat, w)
-        row0 = r + row_off
-        col0 = cc + col_off
+        weight = counts.reshape(-1)[flat].astype(np.float64, copy=False)
+        row0, col0 = np.divmod(flat, w)
+        if row_off:
+            row0 += row_off
+        if col_off:
+            col0 += col_off
+        if w == grid_width and col_off == 0:
+            unit = flat
+            if row_off:
+                unit += row_off * grid_width
+        else:
+            unit = row0 * int(grid_width) + col0
         pr = row0 + 0.5
         pc = col0 + 0.5
-        weight = counts.reshape(-1)[flat].astype(np.float64)
     else:
         s, si, sj = block_sums(counts, factor)
         flat = np.flatnonzero(s > 0)
@@ -150,20 +160,56 @@ def block_points(
         col0 = bc * factor + col_off
         pr = row0 + si.reshape(-1)[flat] / weight
         pc = col0 + sj.reshape(-1)[flat] / weight
-    x = c + a * pc
-    y = f + e * pr
+        unit = row0 * int(grid_width) + col0
+    x = pc * a
+    x += c
+    y = pr * e
+    y += f
     if b:
         x += b * pr
     if d:
         y += d * pc
-    unit = row0.astype(np.int64) * int(grid_width) + col0
-    return BlockPoints(x, y, weight, unit.astype(np.int64), row0.astype(np.int64), col0.astype(np.int64))
+    del pr, pc
+    return BlockPoints(x, y, weight, unit.astype(np.int64, copy=False), row0, col0)
 
 
 def apply_affine(transform: Any, cols: Any, rows: Any) -> tuple[Any, Any]:
     """``(x, y)`` of pixel coordinates ``(cols, rows)`` (arrays or scalars) under an affine transform."""
     a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
     return c + a * cols + b * rows, f + d * cols + e * rows
+
+
+def cell_centres(unit: np.ndarray, transform: Any, grid_width: int, out: np.ndarray | None = None) -> np.ndarray:
+    """Centres ``(n, 2)`` of the cells with flat indices ``unit`` (``row * grid_width + col``).
+
+    Written into ``out`` when given, in slices, so that no full-size temporaries are made.
+
+    >>> from affine import Affine
+    >>> cell_centres(np.array([0, 5]), Affine(10, 0, 0, 0, -10, 100), 3).tolist()
+    [[5.0, 95.0], [25.0, 85.0]]
+    """
+    unit = np.asarray(unit)
+    n = len(unit)
+    if out is None:
+        out = np.empty((n, 2), dtype=np.float64)
+    a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
+    step = 1 << 20
+    for start in range(0, n, step):
+        rows, cols = np.divmod(unit[start : start + step], grid_width)
+        pr = rows + 0.5
+        pc = cols + 0.5
+        del rows, cols
+        x = out[start : start + step, 0]
+        y = out[start : start + step, 1]
+        np.multiply(pc, a, out=x)
+        x += c
+        np.multiply(pr, e, out=y)
+        y += f
+        if b:
+            x += b * pr
+        if d:
+            y += d * pc
+    return out
 
 
 def block_corners(transform: Any, row0: np.ndarray, col0: np.ndarray, factor: int) -> tuple[np.ndarray, np.ndarray]:
@@ -194,6 +240,83 @@ def half_diagonal(transform: Any, factor: int = 1) -> float:
     d1 = math.hypot(a + b, d + e)
     d2 = math.hypot(a - b, d - e)
     return 0.5 * factor * max(d1, d2)
+
+
+class PointBuffer:
+    """Output arrays for demand points that grow in place while windows stream in.
+
+    ``numpy.ndarray.resize`` reallocates, which for large blocks moves page
+    tables rather than copying (``mremap`` on Linux), so growing does not
+    hold two copies; :meth:`finish` trims to the points made.  Capacity
+    starts at ``capacity`` (untouched memory costs nothing) and grows by half.
+
+    >>> buf = PointBuffer(1)
+    >>> buf.add_points(np.array([1.0, 2.0]), np.array([3.0, 4.0]), np.array([5.0, 6.0]), np.array([7, 8]), 0.5)
+    >>> xy, w, u, fp = buf.finish()
+    >>> xy.tolist(), w.tolist(), u.tolist(), fp.tolist()
+    ([[1.0, 3.0], [2.0, 4.0]], [5.0, 6.0], [7, 8], [0.5, 0.5])
+    """
+
+    def __init__(self, capacity: int = 1024) -> None:
+        capacity = max(int(capacity), 1)
+        self.n = 0
+        self.xy = np.empty((capacity, 2), dtype=np.float64)
+        self.weight = np.empty(capacity, dtype=np.float64)
+        self.unit = np.empty(capacity, dtype=np.int64)
+        self.footprint = np.empty(capacity, dtype=np.float64)
+
+    @property
+    def capacity(self) -> int:
+        return len(self.weight)
+
+    def reserve(self, extra: int, expect: int | None = None) -> None:
+        """Make room for ``extra`` more points; ``expect`` is a guess of the final count, if any."""
+        need = self.n + int(extra)
+        if need <= self.capacity:
+            return
+        cap = max(need, int(expect) if expect else self.capacity + self.capacity // 2)
+        if self.n == 0:  # nothing to keep: fresh, untouched memory
+            self.__init__(cap)  # type: ignore[misc]
+            return
+        # resize zero-fills the new part (numpy) but keeps one copy of the old part
+        self.xy.resize((cap, 2), refcheck=False)
+        for arr in (self.weight, self.unit, self.footprint):
+            arr.resize(cap, refcheck=False)
+
+    def add_cells(self, flat: np.ndarray, offset: int, weight: np.ndarray, transform: Any, grid_width: int, footprint: float) -> None:
+        """Add whole cells by flat index (``flat + offset`` in the grid), their centres computed in place."""
+        k = len(flat)
+        self.reserve(k)
+        lo, hi = self.n, self.n + k
+        unit = self.unit[lo:hi]
+        np.add(flat, offset, out=unit, casting="unsafe")
+        cell_centres(unit, transform, grid_width, out=self.xy[lo:hi])
+        self.weight[lo:hi] = weight
+        self.footprint[lo:hi] = footprint
+        self.n = hi
+        del unit
+
+    def add_points(self, x: np.ndarray, y: np.ndarray, weight: np.ndarray, unit: np.ndarray, footprint: Any) -> None:
+        """Add points with their coordinates, weights, units and footprints (array or one value)."""
+        k = len(weight)
+        self.reserve(k)
+        lo, hi = self.n, self.n + k
+        self.xy[lo:hi, 0] = x
+        self.xy[lo:hi, 1] = y
+        self.weight[lo:hi] = weight
+        self.unit[lo:hi] = unit
+        self.footprint[lo:hi] = footprint
+        self.n = hi
+
+    def finish(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """The arrays trimmed to the points added (the buffer is not usable afterwards)."""
+        n = self.n
+        self.xy.resize((n, 2), refcheck=False)
+        for arr in (self.weight, self.unit, self.footprint):
+            arr.resize(n, refcheck=False)
+        out = (self.xy, self.weight, self.unit, self.footprint)
+        del self.xy, self.weight, self.unit, self.footprint
+        return out
 
 
 # --------------------------------------------------------------------------- ellipsoidal areas

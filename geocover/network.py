@@ -12,7 +12,8 @@ How a time is made
   the nearest segment (not the nearest vertex) within ``max_snap_m``; the
   off-road leg is timed at ``offroad_speed_kmh``.  Points farther than
   ``max_snap_m`` from every road are *unsnapped*: they get no coverage and
-  are listed in ``reach.notes``.
+  are listed in ``reach.notes``.  A point whose nearest road point is a
+  node stands on that node, whatever the direction of its segment.
 * **Times.**  From each site, Dijkstra bounded by the limit
   (:func:`scipy.sparse.csgraph.dijkstra` with ``limit``) runs from a virtual
   node on the site's segment that leads to the segment's end(s) the site may
@@ -86,7 +87,7 @@ DEFAULT_SPEEDS_KMH: Mapping[str, float] = {
 _FORWARD = {"1", "yes", "true", "forward", "y", "t"}
 _BACKWARD = {"-1", "reverse", "backward", "back"}
 _BOTH = {"0", "no", "false", "both", "n", "f", "", "none", "nan"}
-_BATCH_CELLS = 8_000_000  # dense Dijkstra rows per batch: sources x nodes
+_BATCH_CELLS = 2_000_000  # dense Dijkstra rows per batch: sources x nodes (small batches stay in cache)
 
 
 # --------------------------------------------------------------------------- the graph
@@ -151,8 +152,15 @@ class RoadNetwork:
         return np.where(self.intersection[nodes], self.turn_penalty_s, 0.0)
 
     def snap(self, xy: np.ndarray, max_snap_m: float) -> Snap:
-        """Snap points to the nearest segment within ``max_snap_m``."""
-        import shapely
+        """Snap points to the nearest point of the nearest segment within ``max_snap_m``.
+
+        Segments are indexed by the midpoints of pieces no longer than about
+        twice the median segment length.  The nearest midpoint bounds the
+        distance to the nearest segment from above, so every piece that
+        could be nearer lies within that bound plus the longest half-piece;
+        those are measured exactly.
+        """
+        from scipy.spatial import cKDTree
 
         xy = np.asarray(xy, dtype=np.float64).reshape(-1, 2)
         k = len(xy)
@@ -162,25 +170,59 @@ class RoadNetwork:
         out = np.full((k, 2), np.nan)
         if k == 0 or self.n_segments == 0:
             return Snap(seg, t, dist, out)
-        tree = self._cache.get("tree")
-        if tree is None:
-            a, b = self.node_xy[self.seg_u], self.node_xy[self.seg_v]
-            tree = shapely.STRtree(shapely.linestrings(np.stack([a, b], axis=1)))
-            self._cache["tree"] = tree
-        hit, _ = tree.query_nearest(
-            shapely.points(xy), max_distance=float(max_snap_m), return_distance=True, all_matches=False
-        )
-        pts, segs = hit[0], hit[1].astype(np.int64)
-        a, b = self.node_xy[self.seg_u[segs]], self.node_xy[self.seg_v[segs]]
-        ab = b - a
-        len2 = np.einsum("ij,ij->i", ab, ab)
-        tt = np.clip(np.einsum("ij,ij->i", xy[pts] - a, ab) / np.where(len2 > 0, len2, 1.0), 0.0, 1.0)
-        proj = a + tt[:, None] * ab
-        dd = np.hypot(*(xy[pts] - proj).T)
-        ok = dd <= max_snap_m
-        pts, segs, tt, proj, dd = pts[ok], segs[ok], tt[ok], proj[ok], dd[ok]
-        seg[pts], t[pts], dist[pts], out[pts] = segs, tt, dd, proj
+        index = self._cache.get("index")
+        if index is None:
+            piece_len = max(2.0 * float(np.median(self.seg_length)), 1e-9)
+            n_pieces = np.maximum(np.ceil(self.seg_length / piece_len), 1).astype(np.int64)
+            parent = np.repeat(np.arange(self.n_segments), n_pieces)
+            first = np.cumsum(n_pieces) - n_pieces
+            j = np.arange(len(parent)) - np.repeat(first, n_pieces)
+            f0 = j / n_pieces[parent]
+            f1 = (j + 1) / n_pieces[parent]
+            a, b = self.node_xy[self.seg_u[parent]], self.node_xy[self.seg_v[parent]]
+            pa = a + f0[:, None] * (b - a)
+            pb = a + f1[:, None] * (b - a)
+            half = 0.5 * float(np.max(np.hypot(*(pb - pa).T)))
+            index = (cKDTree(0.5 * (pa + pb)), parent, f0, f1, pa, pb, half)
+            self._cache["index"] = index
+        tree, parent, f0, f1, pa, pb, half = index
+        n_p = len(parent)
+        kk = min(8, n_p)
+        d_mid, cand = tree.query(xy, k=kk)
+        d_mid, cand = d_mid.reshape(k, kk), cand.reshape(k, kk)
+        need = d_mid[:, 0] + half  # every piece that could be nearer has its midpoint within this
+        best_p, best_t, best_d = self._nearest_of(xy, cand)
+        short = np.flatnonzero((d_mid[:, -1] <= need) & (kk < n_p))
+        if len(short):  # rare: more than kk pieces could be nearer; take them all
+            lists = tree.query_ball_point(xy[short], r=need[short] * (1 + 1e-12) + 1e-9)
+            for row, ids in zip(short, lists):
+                p_, t_, d_ = self._nearest_of(xy[row : row + 1], np.asarray(ids, dtype=np.int64)[None, :])
+                best_p[row], best_t[row], best_d[row] = p_[0], t_[0], d_[0]
+        ok = best_d <= max_snap_m
+        pc = best_p[ok]
+        seg[ok] = parent[pc]
+        t[ok] = f0[pc] + best_t[ok] * (f1[pc] - f0[pc])
+        dist[ok] = best_d[ok]
+        a, b = self.node_xy[self.seg_u[seg[ok]]], self.node_xy[self.seg_v[seg[ok]]]
+        out[ok] = a + t[ok][:, None] * (b - a)
         return Snap(seg, t, dist, out)
+
+    def _nearest_of(self, xy: np.ndarray, cand: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The nearest of the candidate pieces ``cand`` (rows per point) and the position on it."""
+        _, parent, _, _, pa, pb, _ = self._cache["index"]
+        valid = cand < len(parent)
+        c = np.where(valid, cand, 0)
+        a, b = pa[c], pb[c]
+        ab = b - a
+        rel = xy[:, None, :] - a
+        len2 = np.einsum("ijk,ijk->ij", ab, ab)
+        tt = np.clip(np.einsum("ijk,ijk->ij", rel, ab) / np.where(len2 > 0, len2, 1.0), 0.0, 1.0)
+        diff = rel - tt[..., None] * ab
+        d = np.sqrt(np.einsum("ijk,ijk->ij", diff, diff))
+        d[~valid] = np.inf
+        col = np.argmin(d, axis=1)
+        rows = np.arange(len(xy))
+        return c[rows, col], tt[rows, col], d[rows, col]
 
 
 def _direction_codes(values: Any, field_name: str) -> np.ndarray:
@@ -305,7 +347,8 @@ def build_network(
     if not (math.isfinite(penalty) and penalty >= 0):
         raise ParameterError(f"turn_penalty_s: must be zero or more seconds, got {turn_penalty_s!r}", "turn_penalty_s")
     geoms = np.asarray(roads.geometry.values, dtype=object)
-    present = np.array([g is not None and not g.is_empty for g in geoms], dtype=bool)
+    present = ~shapely.is_missing(geoms)
+    present[present] = ~shapely.is_empty(geoms[present])
     if (~present).any():
         logger.warning("roads: %d feature(s) without geometry are skipped", int((~present).sum()))
     kinds = shapely.get_type_id(np.where(present, geoms, None))
@@ -338,16 +381,22 @@ def build_network(
     a_idx, length = a_idx[nonzero], length[nonzero]
     seg_feature = part_feature[line_of[a_idx]]
     # nodes: exactly shared coordinates
-    uniq, inverse = np.unique(coords, axis=0, return_inverse=True)
-    inverse = inverse.ravel()
+    order = np.lexsort((coords[:, 1], coords[:, 0]))
+    sc = coords[order]
+    new_node = np.ones(len(sc), dtype=bool)
+    new_node[1:] = (sc[1:, 0] != sc[:-1, 0]) | (sc[1:, 1] != sc[:-1, 1])
+    uniq = sc[new_node]
+    inverse = np.empty(len(coords), dtype=np.int64)
+    inverse[order] = np.cumsum(new_node) - 1
     seg_u, seg_v = inverse[a_idx].astype(np.int64), inverse[a_idx + 1].astype(np.int64)
     seg_time = length / (speeds[seg_feature] / 3.6)
     code = direction[seg_feature]
     forward, backward = code >= 0, code <= 0
     n = len(uniq)
     # intersections: three or more distinct neighbouring nodes
-    und = np.unique(np.sort(np.column_stack([seg_u, seg_v]), axis=1), axis=0) if len(seg_u) else np.zeros((0, 2), np.int64)
-    degree = np.bincount(und.ravel(), minlength=n)
+    lo_end, hi_end = np.minimum(seg_u, seg_v), np.maximum(seg_u, seg_v)
+    pair_key = np.unique(lo_end * max(n, 1) + hi_end)
+    degree = np.bincount(np.concatenate([pair_key // max(n, 1), pair_key % max(n, 1)]), minlength=n)
     intersection = degree >= 3
     tail = np.concatenate([seg_u[forward], seg_v[backward]])
     head = np.concatenate([seg_v[forward], seg_u[backward]])
@@ -397,8 +446,9 @@ def _legs(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> tuple[np.ndarray, np
     u, v = net.seg_u[seg], net.seg_v[seg]
     full = net.seg_time[seg]
     t = snap.t[idx]
-    from_u = np.where(net.forward[seg], t * full + net.penalty(u), np.inf)
-    from_v = np.where(net.backward[seg], (1.0 - t) * full + net.penalty(v), np.inf)
+    # a point snapped onto an end node (t = 0 or 1) is at that node, whatever the segment's direction
+    from_u = np.where(net.forward[seg] | (t == 0.0), t * full + net.penalty(u), np.inf)
+    from_v = np.where(net.backward[seg] | (t == 1.0), (1.0 - t) * full + net.penalty(v), np.inf)
     return u, v, from_u, from_v
 
 
@@ -410,8 +460,8 @@ def _source_graph(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> sp.csr_matri
     full = net.seg_time[seg]
     k = len(idx)
     src = n + np.arange(k)
-    to_u = net.backward[seg]  # leaving the site towards u means driving v -> u
-    to_v = net.forward[seg]
+    to_u = net.backward[seg] | (t == 0.0)  # leaving the site towards u means driving v -> u (or standing on u)
+    to_v = net.forward[seg] | (t == 1.0)
     g = net.graph.tocoo()
     tail = np.concatenate([g.row, src[to_u], src[to_v]])
     head = np.concatenate([g.col, net.seg_u[seg][to_u], net.seg_v[seg][to_v]])
@@ -434,49 +484,62 @@ def _network_pairs(
     d_idx = np.flatnonzero(dsnap.snapped)
     s_idx = np.flatnonzero(ssnap.snapped & (s_off <= limit))
     rows_out, cols_out, vals_out = [], [], []
+    empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
     if len(d_idx) == 0 or len(s_idx) == 0:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
+        return empty, empty
     du, dv, d_from_u, d_from_v = _legs(net, dsnap, d_idx)
-    # node -> demand points on a segment ending there
-    ends = np.concatenate([du, dv])
-    which = np.concatenate([np.arange(len(d_idx)), np.arange(len(d_idx))])
-    order = np.argsort(ends, kind="stable")
-    node_dem = which[order]
-    node_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
-    np.cumsum(np.bincount(ends, minlength=n_nodes), out=node_ptr[1:])
+    # node -> demand points whose segment starts there (u-list) / ends there (v-list)
+    u_order = np.argsort(du, kind="stable")
+    u_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
+    np.cumsum(np.bincount(du, minlength=n_nodes), out=u_ptr[1:])
+    v_order = np.argsort(dv, kind="stable")
+    v_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
+    np.cumsum(np.bincount(dv, minlength=n_nodes), out=v_ptr[1:])
     # segment -> demand points on it (for the direct leg along the site's own segment)
     dseg = dsnap.segment[d_idx]
     seg_order = np.argsort(dseg, kind="stable")
     seg_ptr = np.zeros(net.n_segments + 1, dtype=np.int64)
     np.cumsum(np.bincount(dseg, minlength=net.n_segments), out=seg_ptr[1:])
+    d_off_snapped = d_off[d_idx]
+
+    def expand(r: np.ndarray, node: np.ndarray, ptr: np.ndarray, order_: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        cnt = ptr[node + 1] - ptr[node]
+        first = np.cumsum(cnt) - cnt
+        pos = np.repeat(ptr[node] - first, cnt) + np.arange(int(cnt.sum()))
+        return np.repeat(r, cnt), order_[pos], cnt
 
     graph = _source_graph(net, ssnap, s_idx)
     budget = limit - s_off[s_idx]  # time left on the network for each site
-    batch = max(1, int(_BATCH_CELLS // max(graph.shape[0], 1)))
+    batch = max(1, min(int(_BATCH_CELLS // max(graph.shape[0], 1)), 30_000))
     for a in range(0, len(s_idx), batch):
         b = min(a + batch, len(s_idx))
         times = dijkstra(graph, directed=True, indices=n_nodes + np.arange(a, b), limit=float(budget[a:b].max()))
         times = times[:, :n_nodes]
-        r, node = np.nonzero(times <= budget[a:b, None])
-        if len(r):
-            cnt = node_ptr[node + 1] - node_ptr[node]
-            rr = np.repeat(r, cnt)
-            first = np.cumsum(cnt) - cnt
-            pos = np.repeat(node_ptr[node] - first, cnt) + np.arange(int(cnt.sum()))
-            dd = node_dem[pos]
-            via = np.repeat(node, cnt)
-            tu = times[rr, du[dd]]
-            # one entry per (site, demand): keep the one arriving through u, or through v when u is not reached
-            keep = (via == du[dd]) | ~(tu <= budget[a + rr])
-            rr, dd, tu = rr[keep], dd[keep], tu[keep]
-            tv = times[rr, dv[dd]]
-            net_t = np.minimum(tu + d_from_u[dd], tv + d_from_v[dd])
-            total = s_off[s_idx[a + rr]] + net_t + d_off[d_idx[dd]]
-            ok = total <= limit
-            rows_out.append(d_idx[dd[ok]])
-            cols_out.append(s_idx[a + rr[ok]])
-            vals_out.append(total[ok])
+        bud = budget[a:b]
+        r, node = np.nonzero(times <= bud[:, None])
+        if len(r) == 0:
+            continue
+        t_node = times[r, node]
+        # demand whose segment starts at a reached node: the better of its two ends
+        r1, d1, cnt = expand(r, node, u_ptr, u_order)
+        t1 = np.minimum(np.repeat(t_node, cnt) + d_from_u[d1], times[r1, dv[d1]] + d_from_v[d1])
+        # demand whose segment ends at a reached node while its start is not reached: through the end only
+        r2, d2, cnt = expand(r, node, v_ptr, v_order)
+        t2 = np.repeat(t_node, cnt) + d_from_v[d2]
+        fresh = ~(times[r2, du[d2]] <= bud[r2])
+        r2, d2, t2 = r2[fresh], d2[fresh], t2[fresh]
+        rr = np.concatenate([r1, r2])
+        dd = np.concatenate([d1, d2])
+        total = np.concatenate([t1, t2]) + s_off[s_idx[a + rr]] + d_off_snapped[dd]
+        ok = np.flatnonzero(total <= limit)
+        # site-major order (the caller builds a CSC): a stable radix sort on the batch-local site
+        ok = ok[np.argsort(rr[ok].astype(np.int16 if batch < 32_000 else np.int32), kind="stable")]
+        rows_out.append(d_idx[dd[ok]])
+        cols_out.append(s_idx[a + rr[ok]])
+        vals_out.append(total[ok])
+    net_pairs = _join(rows_out, cols_out, vals_out)
     # direct legs: demand on the site's own segment
+    direct = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
     sseg = ssnap.segment[s_idx]
     cnt = seg_ptr[sseg + 1] - seg_ptr[sseg]
     if cnt.sum():
@@ -491,12 +554,37 @@ def _network_pairs(
         behind = np.where(net.backward[seg] & (td <= ts), (ts - td) * full, np.inf)
         total = s_off[s_idx[rs]] + np.minimum(ahead, behind) + d_off[d_idx[dd]]
         ok = total <= limit
-        rows_out.append(d_idx[dd[ok]])
-        cols_out.append(s_idx[rs[ok]])
-        vals_out.append(total[ok])
-    if not rows_out:
+        direct = (d_idx[dd[ok]], s_idx[rs[ok]], total[ok])
+    return net_pairs, direct
+
+
+def _join(rows: list, cols: list, vals: list) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    if not rows:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
-    return np.concatenate(rows_out), np.concatenate(cols_out), np.concatenate(vals_out)
+    return np.concatenate(rows), np.concatenate(cols), np.concatenate(vals)
+
+
+def _combine(n: int, m: int, net_pairs: tuple, direct: tuple) -> sp.csr_matrix:
+    """Canonical CSR of the network pairs (unique, in site order) merged with the direct legs by minimum."""
+    rows, cols, vals = net_pairs
+    colptr = np.zeros(m + 1, dtype=np.int64)
+    np.cumsum(np.bincount(cols, minlength=m), out=colptr[1:])
+    # cols are non-decreasing (sites are handled in order), so this is a CSC; its transpose is canonical CSR
+    mat = sp.csc_matrix((vals, rows, colptr), shape=(n, m)).tocsr()
+    mat.has_canonical_format = True
+    d_rows, d_cols, d_vals = _min_pairs(*direct, m)
+    if len(d_rows) == 0:
+        return mat
+    keys = np.repeat(np.arange(n, dtype=np.int64), np.diff(mat.indptr)) * m + mat.indices
+    d_keys = d_rows.astype(np.int64) * m + d_cols
+    at = np.searchsorted(keys, d_keys)
+    found = (at < len(keys)) & (keys[np.minimum(at, len(keys) - 1)] == d_keys) if len(keys) else np.zeros(len(d_keys), bool)
+    mat.data[at[found]] = np.minimum(mat.data[at[found]], d_vals[found])
+    if (~found).any():
+        extra = sp.csr_matrix((d_vals[~found], (d_rows[~found], d_cols[~found])), shape=(n, m))
+        mat = (mat + extra).tocsr()  # disjoint patterns: the sum is the union
+        mat.sort_indices()
+    return mat
 
 
 def _min_pairs(rows: np.ndarray, cols: np.ndarray, vals: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -647,8 +735,8 @@ def reach_network(
     v_off = float(offroad_speed_kmh) / 3.6
     d_off = dsnap.distance / v_off
     s_off = ssnap.distance / v_off
-    rows, cols, vals = _network_pairs(net, dsnap, d_off, ssnap, s_off, limit)
-    rows, cols, vals = _min_pairs(rows, cols, vals, len(sites))
+    net_pairs, direct = _network_pairs(net, dsnap, d_off, ssnap, s_off, limit)
+    mat = _combine(len(demand), len(sites), net_pairs, direct)
     unsnapped_d = np.flatnonzero(~dsnap.snapped)
     unsnapped_s = np.flatnonzero(~ssnap.snapped)
     if len(unsnapped_d):
@@ -675,8 +763,6 @@ def reach_network(
         "offroad_speed_kmh": float(offroad_speed_kmh),
         "max_snap_m": float(max_snap_m),
     }
-    mat = sp.csr_matrix((vals, (rows, cols)), shape=(len(demand), len(sites)))
-    mat.sum_duplicates()  # pairs are unique already; this sorts the columns
     return Reach(
         mat,
         weight=demand.weight,

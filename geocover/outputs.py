@@ -200,21 +200,37 @@ def uncovered_layers(reach: Reach, plan: Plan) -> tuple["gpd.GeoDataFrame", "gpd
     return points, areas
 
 
-def screened_sites_layer(record: ScreeningRecord, plan: Plan | None = None) -> "gpd.GeoDataFrame":
+def screened_sites_layer(record: ScreeningRecord, plan: Plan | None = None, sites: Sites | None = None) -> "gpd.GeoDataFrame":
+    """Every candidate and existing site with its verdict, reason, role and whether the plan chose it.
+
+    Rows with verdict ``invalid`` (no usable location) get an empty geometry.
+    """
+    import shapely
+
+    located = record.verdict.astype(str) != "invalid"
+    geometry = np.full(len(record), None, dtype=object)
+    if located.any():
+        geometry[located] = shapely.points(record.xy[located])
     chosen = np.zeros(len(record), dtype=bool)
     if plan is not None:
         chosen = np.isin(record.site_index, plan.sites) & (record.site_index >= 0)
-    data = {
+    data: dict[str, Any] = {
         "site_id": record.label.astype(str),
         "verdict": record.verdict.astype(str),
         "rule": record.rule.astype(str),
         "rejected_by_layer": record.layer.astype(str),
         "rejected_by_feature": record.feature,
         "nearest_exclusion_m": np.where(np.isfinite(record.nearest_exclusion_m), record.nearest_exclusion_m, np.nan),
+        "land_use_share": record.land_use_share,
         "site_index": record.site_index,
-        "chosen": chosen,
     }
-    return _frame(data, _points(record.xy), record.crs, "screened_sites")
+    if sites is not None:
+        role = np.full(len(record), "", dtype=object)
+        kept = record.site_index >= 0
+        role[kept] = [SiteRole(int(r)).label for r in sites.role[record.site_index[kept]]]
+        data["role"] = role
+    data["chosen"] = chosen
+    return _frame(data, geometry, record.crs, "screened_sites")
 
 
 def study_layers(
@@ -234,7 +250,7 @@ def study_layers(
         "uncovered_areas": areas,
     }
     if record is not None:
-        layers["screened_sites"] = screened_sites_layer(record, plan)
+        layers["screened_sites"] = screened_sites_layer(record, plan, reach.sites)
     return layers
 
 

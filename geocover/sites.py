@@ -36,7 +36,6 @@ go to ``Sites.close_pairs`` and the models forbid opening both.
 
 from __future__ import annotations
 
-import enum
 import logging
 import math
 from dataclasses import dataclass
@@ -46,6 +45,7 @@ import numpy as np
 import shapely
 
 from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, require_projected
+from .choices import LatticeShape
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
 from .layers import LayerRef, open_raster, parse_layer_ref, read_vector, to_crs
@@ -192,13 +192,6 @@ class LandUseMask:
         if self.allowed is not None:
             return np.isin(values, self.allowed)
         return ~np.isin(values, self.forbidden)
-
-
-class LatticeShape(str, enum.Enum):
-    """Arrangement of generated candidate points."""
-
-    SQUARE = "square"  #: rows and columns ``spacing`` apart
-    HEX = "hex"  #: rows ``spacing * sqrt(3) / 2`` apart, every other row shifted by half a spacing
 
 
 # --------------------------------------------------------------------------- reading
@@ -357,19 +350,43 @@ def _exclusion_layer(rule: Exclusion, crs: "CRS", notes: list[str]) -> tuple[np.
     return geoms[present], ids[present]
 
 
-def _screen_zones(footprints: np.ndarray, rows: np.ndarray, geoms: np.ndarray, ids: np.ndarray, setback: float) -> _Hits:
-    """Which footprints (at ``rows``) are closer than ``setback`` to a zone, and their nearest distance."""
+def _screen_zones(
+    footprints: np.ndarray,
+    xy: np.ndarray,
+    rows: np.ndarray,
+    geoms: np.ndarray,
+    ids: np.ndarray,
+    setback: float,
+    nearest: bool = True,
+) -> _Hits:
+    """Which footprints (at ``rows``) are closer than ``setback`` to a zone, and their nearest-zone distance.
+
+    Verdicts: one STRtree query (``dwithin`` the setback, widened by a
+    hair because GEOS's test is inclusive and rounded, or ``intersects``
+    with no setback), then the exact GEOS distance on the pairs found; a
+    site is rejected when one is below the setback.  Its nearest distance is
+    the least of those, since every zone within the setback was returned.
+
+    Nearest distance of the other sites, exactly, without a per-site
+    nearest-neighbour search (which is several times slower here):
+
+    1. an upper bound ``u``: the distance from the site's point to the
+       nearest zone vertex (a KD-tree query; any point of a zone bounds the
+       distance from above, so a subset of the vertices will do);
+    2. the zones whose envelope meets the footprint's envelope grown by
+       ``u`` (one STRtree envelope query): they include the nearest zone;
+    3. the least exact GEOS distance over those pairs.
+    """
     n = len(footprints)
     hit = np.zeros(n, dtype=bool)
     feature = np.full(n, -1, dtype=np.int64)
-    nearest = np.full(n, np.inf)
+    near = np.full(n, np.inf)
     if not len(geoms) or not len(rows):
-        return _Hits(hit, feature, nearest)
+        return _Hits(hit, feature, near)
     tree = shapely.STRtree(geoms)
     query = footprints[rows]
     if setback > 0:
-        # dwithin is inclusive and float-rounded; widen it a hair, then decide on the exact distance
-        pairs = tree.query(query, predicate="dwithin", distance=setback * (1 + 1e-9) + 1e-9)
+        pairs = tree.query(query, predicate="dwithin", distance=setback * (1 + 1e-9) + 1e-6)
         dist = shapely.distance(query[pairs[0]], geoms[pairs[1]])
         close = dist < setback
         pairs, dist = pairs[:, close], dist[close]
@@ -383,12 +400,36 @@ def _screen_zones(footprints: np.ndarray, rows: np.ndarray, geoms: np.ndarray, i
         site = rows[pairs[0][first]]
         hit[site] = True
         feature[site] = ids[pairs[1][first]]
-        nearest[site] = dist[first]
+        near[site] = dist[first]
     rest = rows[~hit[rows]]
-    if len(rest):
-        _, near = tree.query_nearest(footprints[rest], return_distance=True, all_matches=False)
-        nearest[rest] = near
-    return _Hits(hit, feature, nearest)
+    if nearest and len(rest):
+        near[rest] = _nearest_distance(tree, geoms, footprints[rest], xy[rest])
+    return _Hits(hit, feature, near)
+
+
+def _nearest_distance(tree: Any, geoms: np.ndarray, query: np.ndarray, xy: np.ndarray) -> np.ndarray:
+    """Exact distance from each footprint in ``query`` (standing at ``xy``) to the nearest of ``geoms``."""
+    from scipy.spatial import cKDTree
+
+    vertices = shapely.get_coordinates(geoms)
+    step = max(1, len(vertices) // (4 * len(geoms)))  # about four vertices per zone is a tight enough bound
+    upper, _ = cKDTree(vertices[::step], balanced_tree=False, compact_nodes=False).query(xy)
+    reach = upper * (1 + 1e-9) + 1e-6
+    grown = shapely.bounds(query) + np.stack([-reach, -reach, reach, reach], axis=1)
+    pairs = tree.query(shapely.box(grown[:, 0], grown[:, 1], grown[:, 2], grown[:, 3]))
+    dist = shapely.distance(query[pairs[0]], geoms[pairs[1]])
+    return _group_min(pairs[0], dist, len(query))
+
+
+def _group_min(index: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
+    """Least of ``values`` per ``index`` in ``0..n-1`` (inf where there is none)."""
+    out = np.full(n, np.inf)
+    if len(index):
+        order = np.argsort(index, kind="stable")
+        index, values = index[order], values[order]
+        starts = np.flatnonzero(np.r_[True, index[1:] != index[:-1]])
+        out[index[starts]] = np.minimum.reduceat(values, starts)
+    return out
 
 
 def _affine(t: Any, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -406,10 +447,23 @@ def _cell_polygons(transform: Any, rows: np.ndarray, cols: np.ndarray) -> np.nda
     return shapely.polygons(np.stack([x, y], axis=2))
 
 
+_MAX_WINDOW_CELLS = 50_000_000  # read the raster in tiles of sites beyond this many cells at once
+_TILE_CELLS = 4096  # side of such a tile, in cells
+
+
 def _land_use(
     mask: LandUseMask, located: _Located, rows: np.ndarray, crs: "CRS", notes: list[str]
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Share of each footprint (at ``rows``) on allowed classes, and the main disallowed class (-1)."""
+    """Share of each footprint (at ``rows``) on allowed classes, and the main disallowed class (-1).
+
+    Point sites: 1 or 0 by the class of the cell under the point (the
+    cell below / right of it when the point is on a cell edge).  Parcels:
+    the exact area of the parcel on each cell under its bounding box
+    (cell polygon intersection), summed over allowed cells and divided by
+    the parcel's whole area, so area off the raster or on nodata counts as
+    not allowed.  The raster is read once under all sites, or in tiles of
+    sites when that window is very large.
+    """
     import geopandas as gpd
     from rasterio.windows import Window
 
@@ -425,84 +479,93 @@ def _land_use(
             shapes = np.asarray(gpd.GeoSeries(shapes, crs=crs).to_crs(src.crs).array, dtype=object)
         inv = ~src.transform
         bounds = shapely.bounds(shapes)
-        cx = np.concatenate([bounds[:, [0]], bounds[:, [2]], bounds[:, [0]], bounds[:, [2]]], axis=1)
-        cy = np.concatenate([bounds[:, [1]], bounds[:, [1]], bounds[:, [3]], bounds[:, [3]]], axis=1)
+        cx = bounds[:, [0, 2, 0, 2]]
+        cy = bounds[:, [1, 1, 3, 3]]
         colf, rowf = _affine(inv, cx, cy)
-        c0 = np.floor(colf.min(axis=1)).astype(np.int64)
-        c1 = np.floor(colf.max(axis=1)).astype(np.int64)
         r0 = np.floor(rowf.min(axis=1)).astype(np.int64)
         r1 = np.floor(rowf.max(axis=1)).astype(np.int64)
-        # one read of the window under all sites, clipped to the raster
-        wr0, wc0 = max(int(r0.min()), 0), max(int(c0.min()), 0)
-        wr1, wc1 = min(int(r1.max()), src.height - 1), min(int(c1.max()), src.width - 1)
-        if wr1 < wr0 or wc1 < wc0:
-            data = np.zeros((0, 0), dtype=np.int64)
+        c0 = np.floor(colf.min(axis=1)).astype(np.int64)
+        c1 = np.floor(colf.max(axis=1)).astype(np.int64)
+        span = (int(r1.max()) - int(r0.min()) + 1) * (int(c1.max()) - int(c0.min()) + 1)
+        if span <= _MAX_WINDOW_CELLS:
+            groups = [np.arange(len(rows))]
         else:
-            import rasterio.errors
+            tile = _TILE_CELLS
+            key = (np.clip(r0, 0, None) // tile) * (src.width // tile + 1) + np.clip(c0, 0, None) // tile
+            order = np.argsort(key, kind="stable")
+            groups = np.split(order, np.flatnonzero(np.diff(key[order])) + 1)
+        point_all = located.is_point[rows]
+        for group in groups:
+            # the window under this group's sites, clipped to the raster
+            wr0, wc0 = max(int(r0[group].min()), 0), max(int(c0[group].min()), 0)
+            wr1 = min(int(r1[group].max()), src.height - 1)
+            wc1 = min(int(c1[group].max()), src.width - 1)
+            if wr1 < wr0 or wc1 < wc0:
+                data = np.ma.masked_all((1, 1), dtype=np.int64)
+                wr0 = wc0 = wr1 = wc1 = -(10**12)  # nothing is on the raster
+            else:
+                data = src.read(1, window=Window(wc0, wr0, wc1 - wc0 + 1, wr1 - wr0 + 1), masked=True)
+            codes_all = np.asarray(np.ma.getdata(data))
+            invalid_all = np.ma.getmaskarray(data)
+            if np.issubdtype(codes_all.dtype, np.floating):
+                invalid_all = invalid_all | ~np.isfinite(codes_all)
 
-            try:
-                data = src.read(1, window=Window(wc0, wr0, wc1 - wc0 + 1, wr1 - wr0 + 1))
-            except rasterio.errors.RasterioIOError as exc:  # a truncated file opens but cannot be read
-                raise LayerError(
-                    f"land-use raster {mask.raster}: cannot read its cells ({exc}); the file looks truncated or "
-                    "damaged: is it a complete GeoTIFF? Copy or export it again"
-                ) from None
-        nodata = src.nodata
-        transform = src.transform
+            def cell_values(r: np.ndarray, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+                """Class codes (-1 off the raster or nodata) and "allowed" flags."""
+                on = (r >= wr0) & (r <= wr1) & (c >= wc0) & (c <= wc1)
+                values = np.full(len(r), -1, dtype=np.int64)
+                ok = np.zeros(len(r), dtype=bool)
+                if on.any():
+                    rr, cc = r[on] - wr0, c[on] - wc0
+                    valid = ~invalid_all[rr, cc]
+                    codes = np.where(valid, codes_all[rr, cc], -1).astype(np.int64)
+                    values[on] = codes
+                    ok[on] = valid & mask.allows(codes)
+                return values, ok
 
-    def cell_values(r: np.ndarray, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Class codes and "allowed" flags; off-raster and nodata cells are not allowed."""
-        on = (r >= wr0) & (r <= wr1) & (c >= wc0) & (c <= wc1)
-        values = np.full(len(r), -1, dtype=np.int64)
-        ok = np.zeros(len(r), dtype=bool)
-        if on.any():
-            raw = data[r[on] - wr0, c[on] - wc0]
-            valid = np.ones(len(raw), dtype=bool) if nodata is None else ~(raw == nodata)
-            if np.issubdtype(raw.dtype, np.floating):
-                valid &= np.isfinite(raw)
-            codes = np.where(valid, raw, -1).astype(np.int64)
-            values[on] = codes
-            ok[on] = valid & mask.allows(codes)
-        return values, ok
-
-    point = located.is_point[rows]
-    # points: the cell under the point (the cell below/right of it when on a cell edge)
-    if point.any():
-        xy = shapely.get_coordinates(shapely.point_on_surface(shapes[point]))
-        pc, pr = _affine(inv, xy[:, 0], xy[:, 1])
-        values, ok = cell_values(np.floor(pr).astype(np.int64), np.floor(pc).astype(np.int64))
-        share[rows[point]] = ok.astype(np.float64)
-        worst[rows[point]] = np.where(ok, -1, values)
-    # parcels: exact area of the parcel on each cell under its bounding box
-    poly = np.flatnonzero(~point)
-    if len(poly):
-        counts = (r1[poly] - r0[poly] + 1) * (c1[poly] - c0[poly] + 1)
-        owner = np.repeat(poly, counts)
-        start = np.repeat(np.cumsum(counts) - counts, counts)
-        k = np.arange(len(owner)) - start
-        width = np.repeat(c1[poly] - c0[poly] + 1, counts)
-        cell_r = np.repeat(r0[poly], counts) + k // width
-        cell_c = np.repeat(c0[poly], counts) + k % width
-        area = np.zeros(len(owner))
-        chunk = 200_000
-        for s in range(0, len(owner), chunk):
-            sl = slice(s, s + chunk)
-            cells = _cell_polygons(transform, cell_r[sl], cell_c[sl])
-            area[sl] = shapely.area(shapely.intersection(shapes[owner[sl]], cells))
-        values, ok = cell_values(cell_r, cell_c)
-        good = np.bincount(owner, weights=np.where(ok, area, 0.0), minlength=len(rows))
-        # share of the whole footprint: area off the raster counts as not allowed
-        share[rows[poly]] = np.clip(good[poly] / shapely.area(shapes[poly]), 0.0, 1.0)
-        # the disallowed class covering the most area, for the record
-        bad = ~ok & (area > 0)
-        if bad.any():
-            key_owner, key_value = owner[bad], values[bad]
-            pairs, inverse = np.unique(np.stack([key_owner, key_value], axis=1), axis=0, return_inverse=True)
-            sums = np.bincount(inverse.ravel(), weights=area[bad])
-            order = np.lexsort((-sums, pairs[:, 0]))
-            firsts = order[np.unique(pairs[order, 0], return_index=True)[1]]
-            worst[rows[pairs[firsts, 0]]] = pairs[firsts, 1]
+            point = group[point_all[group]]
+            if len(point):
+                xy = shapely.get_coordinates(shapely.point_on_surface(shapes[point]))
+                pc, pr = _affine(inv, xy[:, 0], xy[:, 1])
+                values, ok = cell_values(np.floor(pr).astype(np.int64), np.floor(pc).astype(np.int64))
+                share[rows[point]] = ok.astype(np.float64)
+                worst[rows[point]] = np.where(ok, -1, values)
+            poly = group[~point_all[group]]
+            if len(poly):
+                _parcel_shares(poly, shapes, r0, r1, c0, c1, src.transform, cell_values, rows, share, worst)
     return share, worst
+
+
+def _parcel_shares(
+    poly: np.ndarray, shapes: np.ndarray, r0: np.ndarray, r1: np.ndarray, c0: np.ndarray, c1: np.ndarray,
+    transform: Any, cell_values: Any, rows: np.ndarray, share: np.ndarray, worst: np.ndarray,
+) -> None:
+    """Exact area of each parcel on each cell under its bounding box, summed over allowed cells."""
+    counts = (r1[poly] - r0[poly] + 1) * (c1[poly] - c0[poly] + 1)
+    owner = np.repeat(poly, counts)
+    start = np.repeat(np.cumsum(counts) - counts, counts)
+    k = np.arange(len(owner)) - start
+    width = np.repeat(c1[poly] - c0[poly] + 1, counts)
+    cell_r = np.repeat(r0[poly], counts) + k // width
+    cell_c = np.repeat(c0[poly], counts) + k % width
+    area = np.zeros(len(owner))
+    chunk = 200_000
+    for s in range(0, len(owner), chunk):
+        sl = slice(s, s + chunk)
+        cells = _cell_polygons(transform, cell_r[sl], cell_c[sl])
+        area[sl] = shapely.area(shapely.intersection(shapes[owner[sl]], cells))
+    values, ok = cell_values(cell_r, cell_c)
+    good = np.bincount(owner, weights=np.where(ok, area, 0.0), minlength=len(rows))
+    share[rows[poly]] = np.clip(good[poly] / shapely.area(shapes[poly]), 0.0, 1.0)
+    # the disallowed class covering the most area, for the record
+    bad = ~ok & (area > 0)
+    if bad.any():
+        keys = np.stack([owner[bad], values[bad]], axis=1)
+        pairs, inverse = np.unique(keys, axis=0, return_inverse=True)
+        sums = np.bincount(inverse.ravel(), weights=area[bad])
+        order = np.lexsort((-sums, pairs[:, 0]))
+        firsts = order[np.unique(pairs[order, 0], return_index=True)[1]]
+        worst[rows[pairs[firsts, 0]]] = pairs[firsts, 1]
 
 
 # --------------------------------------------------------------------------- helpers
@@ -630,15 +693,17 @@ def screen_sites(
     study_area: Any = None,
     min_spacing_m: float | None = None,
     label_field: str | None = None,
+    existing_label_field: str | None = None,
     crs: Any = None,
 ) -> tuple[Sites, ScreeningRecord]:
     """Screen candidate sites and return the usable ones with a verdict for every one.
 
     Parameters
     ----------
-    candidates : path, "path:layer", LayerRef or GeoDataFrame
+    candidates : path, "path:layer", LayerRef, GeoDataFrame or None
         Candidate points, or parcel polygons (a parcel stands at a point
-        inside it, and its whole footprint is screened).
+        inside it, and its whole footprint is screened).  ``None`` with
+        ``existing`` given screens today's facilities only (for an audit).
     exclude : Exclusion or sequence of Exclusion
         Exclusion-zone layers with setbacks and filters, tried in order.
     land_use : LandUseMask, optional
@@ -662,11 +727,15 @@ def screen_sites(
         rejected as ``outside``.  A bare shapely geometry is taken to be in
         the working CRS.
     min_spacing_m : float or str, optional
-        Pairs of sites closer than this go to ``Sites.close_pairs`` (pairs of
-        two kept facilities are left out: both are open anyway).
+        Pairs of sites closer than this go to ``Sites.close_pairs``: the
+        models open at most one of each pair.  Pairs of two kept facilities
+        are left out (both are open anyway); a kept-optional pair stays, so
+        an optional facility too close to a kept one is closed.
     label_field : str, optional
         Field with site names (candidates must have it; existing facilities
-        use it when present).
+        use it when present and ``existing_label_field`` is not given).
+    existing_label_field : str, optional
+        Field with the existing facilities' names (they must have it).
     crs : CRS-like, optional
         Working CRS (projected, metres).  Default: the candidates' CRS when
         it is projected in metres, else a local UTM zone.
@@ -689,6 +758,14 @@ def screen_sites(
 
     notes: list[str] = []
     rules = [exclude] if isinstance(exclude, Exclusion) else list(exclude)
+    names = [str(getattr(rule, "name", "")) for rule in rules]
+    for name in names:
+        if names.count(name) > 1:
+            raise ParameterError(
+                f"exclude: {names.count(name)} exclusion layers are named {name!r}; give each its own "
+                "name=... so that verdicts say which one rejected a site",
+                "exclude",
+            )
     for rule in rules:
         if not isinstance(rule, Exclusion):
             raise ParameterError(f"exclude: expected Exclusion(...) items, got {type(rule).__name__}", "exclude")
@@ -699,12 +776,21 @@ def screen_sites(
         raise ParameterError(f"default_cost: must be 0 or more, got {default_cost!r}", "default_cost")
     spacing = None if min_spacing_m is None else parse_distance(min_spacing_m, param="min_spacing_m")
 
-    cand, cand_name = _read(candidates, "candidates", allow_empty=existing is not None)
+    only_existing = candidates is None
+    if only_existing:
+        if existing is None:
+            raise ParameterError("candidates: give candidate sites, existing facilities, or both", "candidates")
+        cand, _ = _read(existing, "existing sites", allow_empty=True)
+        cand, cand_name = cand.iloc[0:0].copy(), "candidates"
+    else:
+        cand, cand_name = _read(candidates, "candidates", allow_empty=existing is not None)
     working = _working_crs(crs, cand)
     cand = _reproject(cand, working, "candidates", notes)
     cand_ids = _feature_ids(cand)
-    cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=True)
-    cand_label = _labels(cand, label_field, "candidate", cand_ids, "candidates layer", required=True)
+    cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
+    if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
+        label_field = "label"  # lattice points carry their own row/column labels
+    cand_label = _labels(cand, label_field, "candidate", cand_ids, "candidates layer", required=not only_existing)
     cand_loc = _locate(cand, "candidates", notes)
 
     if existing is not None:
@@ -712,7 +798,10 @@ def screen_sites(
         ex = _reproject(ex, working, "existing sites", notes)
         ex_ids = _feature_ids(ex)
         ex_cost = _costs(ex, cost_field, 0.0, "existing sites layer", notes, required=False)
-        ex_label = _labels(ex, label_field, "existing", ex_ids, "existing sites layer", required=False)
+        if existing_label_field is not None:
+            ex_label = _labels(ex, existing_label_field, "existing", ex_ids, "existing sites layer", required=True)
+        else:
+            ex_label = _labels(ex, label_field, "existing", ex_ids, "existing sites layer", required=False)
         ex_role = _roles(ex, existing_role_field, default_role, notes)
         ex_loc = _locate(ex, "existing sites", notes)
         bad = np.flatnonzero(ex_loc.invalid != "")
@@ -769,9 +858,11 @@ def screen_sites(
     # exclusion zones
     nearest = np.full(total, np.inf)
     rows = np.flatnonzero(usable)
+    zones: dict[str, np.ndarray] = {}
     for rule in rules:
         geoms, ids = _exclusion_layer(rule, working, notes)
-        hits = _screen_zones(footprint, rows, geoms, ids, rule.setback_m)
+        zones[str(rule.name)] = geoms
+        hits = _screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m)
         nearest = np.minimum(nearest, hits.nearest)
         reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
     if not rules:
@@ -814,10 +905,13 @@ def screen_sites(
     pairs = np.zeros((0, 2), dtype=np.int64)
     if spacing:
         pairs = close_pairs(xy[take], spacing)
+        # two kept sites are open whatever the model does: such a pair could only make it infeasible
         both_kept = (roles[pairs[:, 0]] == SiteRole.KEPT) & (roles[pairs[:, 1]] == SiteRole.KEPT)
         if both_kept.any():
-            notes.append(f"minimum spacing: {int(both_kept.sum())} pair(s) of kept existing sites are closer than "
-                         f"{spacing:g} m; they stay open and are not a constraint")
+            notes.append(
+                f"minimum spacing: {int(both_kept.sum())} pair(s) of kept existing sites are closer than "
+                f"{spacing:g} m; both stay open, so they are not a constraint"
+            )
             pairs = pairs[~both_kept]
     label = np.concatenate([ex_label, cand_label])
     working_label = crs_label(working)
@@ -832,7 +926,7 @@ def screen_sites(
     )
     record = ScreeningRecord(
         xy, verdict, rule_text, layer, feature, nearest, site_index, label=label, crs=working_label,
-        land_use_share=share, notes=tuple(notes),
+        land_use_share=share, notes=tuple(notes), zones=zones,
     )
     logger.info(
         "screened %d candidate(s): %d kept; %d existing site(s)%s",
@@ -868,36 +962,10 @@ def screening_summary(record: ScreeningRecord) -> list[dict[str, Any]]:
 
 
 def screened_sites_frame(record: ScreeningRecord, sites: Sites | None = None) -> "gpd.GeoDataFrame":
-    """The ``screened_sites`` layer: one point per record row with its verdict and reasons.
+    """The ``screened_sites`` layer (see :func:`geocover.outputs.screened_sites_layer`)."""
+    from .outputs import screened_sites_layer
 
-    Rows with verdict ``invalid`` get an empty geometry.  With ``sites`` a
-    ``role`` column (candidate / existing_kept / existing_optional) is added
-    for the kept rows.
-    """
-    import geopandas as gpd
-
-    located = record.verdict.astype(str) != Verdict.INVALID.value
-    geometry = np.full(len(record), None, dtype=object)
-    if located.any():
-        geometry[located] = shapely.points(record.xy[located])
-    data: dict[str, Any] = {
-        "label": record.label.astype(str),
-        "verdict": record.verdict.astype(str),
-        "rule": record.rule.astype(str),
-        "layer": record.layer.astype(str),
-        "feature": record.feature,
-        "nearest_exclusion_m": record.nearest_exclusion_m,
-        "land_use_share": record.land_use_share,
-        "site_index": record.site_index,
-    }
-    if sites is not None:
-        role = np.full(len(record), "", dtype=object)
-        kept = record.site_index >= 0
-        role[kept] = [SiteRole(int(r)).label for r in sites.role[record.site_index[kept]]]
-        data["role"] = role
-    frame = gpd.GeoDataFrame(data, geometry=geometry, crs=record.crs)
-    frame.attrs["description"] = "every candidate and existing site with its screening verdict and reason"
-    return frame
+    return screened_sites_layer(record, None, sites)
 
 
 # --------------------------------------------------------------------------- lattice

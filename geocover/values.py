@@ -239,6 +239,7 @@ class ScreeningRecord:
     crs: str | None = None
     land_use_share: np.ndarray | None = None  #: share of the footprint on allowed land use (nan: no mask)
     notes: tuple[str, ...] = ()  #: what screening repaired, reprojected or flagged, for reports
+    zones: Mapping[str, Any] = field(default_factory=dict)  #: exclusion polygons used, by layer name (for maps)
 
     def __post_init__(self) -> None:
         # rows with verdict "invalid" have no usable location and may hold NaN coordinates
@@ -262,6 +263,7 @@ class ScreeningRecord:
         if n and not np.isfinite(xy[located]).all():
             raise InputError("screening record: only rows with verdict 'invalid' may lack finite coordinates")
         object.__setattr__(self, "notes", tuple(self.notes))
+        object.__setattr__(self, "zones", dict(self.zones))
 
     def __len__(self) -> int:
         return len(self.xy)

@@ -59,3 +59,13 @@ def test_bad_inputs():
         service_areas((s, [0], 10.0), clip=shapely.Polygon())
     with pytest.raises(InputError):
         service_areas("not a reach")
+
+
+def test_both_call_forms():
+    s = Sites(np.array([[0.0, 0.0], [1000.0, 1000.0]]), crs=UTM)
+    study = shapely.box(0.0, -1000.0, 2000.0, 2000.0)
+    reach = reach_planar(Demand(np.array([[0.0, 0.0]]), [1.0], crs=UTM), s, 100.0)
+    by_position = service_areas(reach, [0], study)  # (reach, chosen, clip), as the study pipeline calls it
+    tuple_clip = service_areas((s, [0], 100.0), study)  # (sites, chosen, limit) then the study area
+    for polys in (by_position, tuple_clip):
+        assert len(polys) == 1 and polys[0].area == pytest.approx(_ngon_area(100.0, 128) / 2, rel=1e-9)

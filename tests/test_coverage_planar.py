@@ -139,3 +139,36 @@ def test_memory_budget_refusal_names_a_factor_that_fits():
     with pytest.raises(ParameterError):
         check_memory(10, -1.0, 10)
     assert reach_planar(d, s, 2000.0, memory_budget_gb=budget * 6).matrix.nnz > 0
+
+
+def test_a_short_pair_estimate_only_grows_the_arrays(monkeypatch):
+    import geocover.coverage as cov
+
+    monkeypatch.setattr(cov, "estimate_pairs", lambda *a, **k: 1)  # forces the growth path
+    rng = np.random.default_rng(11)
+    d = rng.uniform(0, 2000, (4000, 2))
+    s = rng.uniform(0, 2000, (60, 2))
+    reach = _check_against_cdist(d, s, 900.0, chunk_rows=500)
+    assert reach.matrix.nnz > 65_536 + 1  # more pairs than the first allocation held
+
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+_coords = st.lists(st.tuples(st.integers(-40, 40), st.integers(-40, 40)), min_size=1, max_size=40)
+
+
+@settings(max_examples=60, deadline=None)
+@given(_coords, _coords, st.sampled_from([1.0, 5.0, 10.0, 13.0, 25.0]), st.integers(1, 50))
+def test_property_equals_brute_force_on_integer_lattices(d, s, limit, chunk):
+    # integer coordinates put many pairs exactly at the limit (e.g. 5-12-13 triangles); brute force is cdist
+    _check_against_cdist(np.array(d, float) * 10.0, np.array(s, float) * 10.0, limit * 10.0, chunk_rows=chunk)
+
+
+def test_sites_in_several_blocks(monkeypatch):
+    import geocover.coverage as cov
+
+    monkeypatch.setattr(cov, "_SITES_PER_BLOCK", 7)
+    monkeypatch.setattr(cov, "_CANDIDATES_PER_BLOCK", 50)
+    rng = np.random.default_rng(12)
+    _check_against_cdist(rng.uniform(0, 3000, (500, 2)), rng.uniform(0, 3000, (90, 2)), 400.0, chunk_rows=128)

@@ -17,6 +17,7 @@ from geocover.demand import demand_from_areas, demand_from_points
 from geocover.errors import CRSError, LayerError, ParameterError
 
 from test_demand_fixtures import write_raster
+from test_demand_grid import SAMPLE  # the same sample-layer location and skip rule
 
 CRS = "EPSG:32626"
 
@@ -251,3 +252,19 @@ def test_demand_from_points():
         demand_from_points(areas(), "pop")
     with pytest.raises(LayerError, match="no field"):
         demand_from_points(frame, "pop")
+
+
+@pytest.mark.skipif(
+    not (SAMPLE / "tarrow.gpkg").exists() or not (SAMPLE / "tarrow_population_100m.tif").exists(),
+    reason="sample_layers/tarrow.gpkg and tarrow_population_100m.tif are not in this checkout yet",
+)
+@pytest.mark.parametrize("placement, extra", [("centroid", {}), ("inside", {}), ("spread", {"spacing_m": "250 m"}), ("spread", {"weight_raster": True})])
+def test_sample_census_areas_conserve_in_every_mode(placement, extra):
+    layer = f"{SAMPLE / 'tarrow.gpkg'}:census_areas"
+    frame = gpd.read_file(SAMPLE / "tarrow.gpkg", layer="census_areas")
+    if extra.get("weight_raster"):
+        extra = {"weight_raster": SAMPLE / "tarrow_population_100m.tif"}
+    d = demand_from_areas(layer, "pop", placement=placement, **extra)
+    check_conserved(d, frame)
+    if placement != "centroid":
+        assert all_inside(d, frame)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import logging
 import math
+import os
 from pathlib import Path
 
 import numpy as np
@@ -325,7 +326,8 @@ def test_invalid_clip_polygon_is_repaired_and_reported(tmp_path):
     conserved(d)
 
 
-SAMPLE = Path(__file__).resolve().parents[1] / "sample_layers"
+# the sample scenario (sample_layers/ at the repository root); GEOCOVER_SAMPLE_LAYERS points elsewhere
+SAMPLE = Path(os.environ.get("GEOCOVER_SAMPLE_LAYERS", Path(__file__).resolve().parents[1] / "sample_layers"))
 
 
 @pytest.mark.skipif(
@@ -342,3 +344,60 @@ def test_zonal_sums_over_sample_areas_match_exactextract():
     for i in range(len(areas)):
         d = demand_from_grid(grid, clip=areas.iloc[[i]], clip_mode="fraction")
         assert d.total == pytest.approx(ref[i], rel=1e-3, abs=1e-6)  # the 0.1 %
+
+
+def test_an_infinity_alone_is_found(tmp_path):
+    data = np.ones((4, 4), dtype=np.float32)
+    data[3, 2] = np.inf
+    path = write_raster(tmp_path / "pop.tif", data)
+    with pytest.raises(InputError, match=r"1 cell\(s\).*row 3, column 2"):
+        demand_from_grid(path)
+    ints = write_raster(tmp_path / "int.tif", np.array([[1, -2], [3, 4]], dtype=np.int16))
+    with pytest.raises(InputError, match=r"1 cell\(s\).*row 0, column 1"):
+        demand_from_grid(ints)
+
+
+@pytest.mark.parametrize("k", [1, 2])
+def test_rotated_grid_centres_follow_the_affine(tmp_path, k):
+    transform = Affine(100.0, 0.0, 500000.0, 0.0, -100.0, 4000000.0) @ Affine.rotation(20.0)
+    data = np.arange(1, 13, dtype=np.float32).reshape(3, 4)
+    path = write_raster(tmp_path / "rot.tif", data, transform=transform)
+    d = demand_from_grid(path, coarsen=k)
+    ref = _brute_coarsen(data, transform, k)
+    for i, u in enumerate(d.unit.tolist()):
+        s, x, y = ref[u]
+        assert d.weight[i] == pytest.approx(s)
+        assert d.xy[i].tolist() == pytest.approx([x, y], abs=1e-6)
+    if k == 1:  # a rotated square cell still has half its diagonal as footprint
+        np.testing.assert_allclose(d.footprint, 50.0 * math.sqrt(2))
+    assert (d.footprint >= 50.0 * k * math.sqrt(2) - 1e-6).all()
+
+
+def test_per_dataset_mask_is_nodata(tmp_path):
+    import rasterio
+
+    data = np.full((3, 4), 5.0, dtype=np.float32)
+    path = write_raster(tmp_path / "masked.tif", data)
+    mask = np.full((3, 4), 255, dtype=np.uint8)
+    mask[1, 1:3] = 0
+    with rasterio.Env(GDAL_TIFF_INTERNAL_MASK=True), rasterio.open(path, "r+") as dst:
+        dst.write_mask(mask)
+    d = demand_from_grid(path)
+    assert d.total == 50.0 and len(d) == 10
+    assert d.summary["dropped"]["nodata"]["cells"] == 2
+    assert 5 not in d.unit.tolist() and 6 not in d.unit.tolist()
+
+
+def test_projected_grid_into_another_working_crs(tmp_path):
+    from pyproj import Transformer
+
+    data = np.array([[1.0, 0.0], [2.0, 3.0]], dtype=np.float32)
+    path = write_raster(tmp_path / "pop.tif", data)
+    d = demand_from_grid(path, crs="EPSG:3857")
+    tr = Transformer.from_crs("EPSG:32626", "EPSG:3857", always_xy=True)
+    for i, u in enumerate(d.unit.tolist()):
+        r, c = divmod(u, 2)
+        assert d.xy[i].tolist() == pytest.approx(list(tr.transform(*apply_affine(UTM, c + 0.5, r + 0.5))), abs=1e-6)
+    # Web Mercator stretches distances by about 1 / cos(latitude ~36 deg) here, and the footprint follows
+    assert (d.footprint > 50 * math.sqrt(2) * 1.2).all() and (d.footprint < 50 * math.sqrt(2) * 1.3).all()
+    assert any("reprojected" in n for n in d.summary["notes"])

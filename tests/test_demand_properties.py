@@ -61,3 +61,55 @@ def test_grid_reader_conserves_total_with_nodata(data, k, rows):
     assert s["people_in"] == pytest.approx(expected, rel=1e-9, abs=1e-6)
     assert s["people_out"] + sum(v["people"] for v in s["dropped"].values()) == pytest.approx(s["people_in"], rel=1e-12, abs=1e-9)
     assert s.get("dropped", {}).get("nodata", {"cells": 0})["cells"] == int((data == -9.0).sum())
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.lists(st.integers(0, 300), min_size=1, max_size=12), st.integers(0, 50))
+def test_point_buffer_grows_without_losing_points(batches, start):
+    from geocover.grid import PointBuffer
+
+    buf = PointBuffer(start)
+    expected = []
+    base = 0
+    for k in batches:
+        if k % 2:
+            flat = np.arange(k, dtype=np.int64)
+            buf.add_cells(flat, base, np.full(k, 2.0, dtype=np.float32), Affine(10, 0, 0, 0, -10, 0), 1000, 7.0)
+        else:
+            buf.add_points(np.arange(k) * 1.0, -np.arange(k) * 1.0, np.ones(k), base + np.arange(k), np.full(k, 3.0))
+        expected.extend((base + i, k % 2) for i in range(k))
+        base += 10_000
+    xy, w, u, fp = buf.finish()
+    assert len(u) == sum(batches)
+    assert u.tolist() == [e[0] for e in expected]
+    assert w.tolist() == [2.0 if e[1] else 1.0 for e in expected]
+    assert fp.tolist() == [7.0 if e[1] else 3.0 for e in expected]
+    cells = np.array([e[1] == 1 for e in expected], dtype=bool)
+    # cells: centre of (row, col) = (u // 1000, u % 1000) under the 10 m grid
+    np.testing.assert_allclose(xy[cells, 0], (u[cells] % 1000 + 0.5) * 10)
+    np.testing.assert_allclose(xy[cells, 1], -(u[cells] // 1000 + 0.5) * 10)
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    st.lists(st.tuples(st.floats(500000, 501200), st.floats(3999000, 4000000)), min_size=3, max_size=7),
+    st.floats(5.0, 300.0),
+    st.integers(0, 10_000),
+)
+def test_clip_fraction_agrees_with_exactextract_on_random_polygons(points, radius, seed):
+    import geopandas as gpd
+    import shapely
+    from exactextract import exact_extract  # independent zonal statistics (exactextract, PyPI)
+
+    poly = shapely.convex_hull(shapely.MultiPoint(points)).buffer(radius, quad_segs=4)
+    rng = np.random.default_rng(seed)
+    data = rng.gamma(1.0, 10.0, size=(12, 14)).astype(np.float32)
+    data[rng.random(data.shape) < 0.3] = -1
+    frame = gpd.GeoDataFrame(geometry=[poly], crs="EPSG:32626")
+    with tempfile.TemporaryDirectory() as tmp:
+        path = write_raster(Path(tmp) / "pop.tif", data, nodata=-1)
+        ref = float(exact_extract(str(path), frame, "sum", output="pandas")["sum"].iloc[0])
+        d = demand_from_grid(path, clip=frame, clip_mode="fraction", window_rows=5)
+    assert d.total == pytest.approx(ref, rel=1e-6, abs=1e-6)
+    s = d.summary
+    assert s["people_out"] + s["dropped"]["outside_clip"]["people"] == pytest.approx(s["people_in"], rel=1e-12)

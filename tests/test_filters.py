@@ -100,6 +100,14 @@ def test_unknown_field_lists_the_layer_fields(frame):
     with pytest.raises(ParameterError) as err:
         filter_mask(frame, "zone == 'A'", layer="flood_zones")
     assert "layer flood_zones has no field 'zone'; its fields are: zone_class, depth_m, year, levee" in str(err.value)
+    with pytest.raises(ParameterError, match="at position 21"):
+        filter_mask(frame, "zone_class == 'A' or zone > 1", layer="flood_zones")
+
+
+def test_mixed_type_fields_are_refused_clearly():
+    frame = pd.DataFrame({"code": ["A", 3, None]})
+    with pytest.raises(ParameterError, match="cannot be compared"):
+        filter_mask(frame, "code > 'B'", layer="odd")
 
 
 def test_type_mismatches_are_explained(frame):

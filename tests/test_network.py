@@ -98,6 +98,13 @@ def _oracle(roads, demand_xy, site_xy, limit, v_off_kmh, max_snap, penalty):
                 add(n0, n1, w + (penalty if n0 in crossing else 0.0))
             if seg_way[k] <= 0:
                 add(n1, n0, w + (penalty if n1 in crossing else 0.0))
+    for k, points in spliced.items():  # a point snapped onto an end node stands on that node
+        u, v = tuple(segs[k][0]), tuple(segs[k][1])
+        for t, name in points:
+            for end, at in ((u, 0.0), (v, 1.0)):
+                if t == at:
+                    add(end, name, penalty if end in crossing else 0.0)
+                    add(name, end, 0.0)
     expected = {}
     for j in range(len(site_xy)):
         src = ("s", j)
@@ -269,3 +276,14 @@ def test_graph_keeps_the_faster_of_parallel_roads():
     roads = _roads([[(0.0, 0.0), (1000.0, 0.0)], [(0.0, 0.0), (1000.0, 0.0)]], kmh=[36.0, 72.0])
     net = build_network(roads, speed_field="kmh")
     assert net.graph.nnz == 2 and net.graph.data.tolist() == [50.0, 50.0]
+
+
+def test_point_snapped_onto_the_end_of_a_one_way_road_stands_on_its_node():
+    # the demand's nearest road point is the node (1000, 0), shared by a two-way road and a short one-way
+    # road drawn towards that node; whichever segment it snaps to, it is at the node
+    roads = _roads([[(0.0, 0.0), (1000.0, 0.0)], [(1000.0, 100.0), (1000.0, 0.0)]], kmh=[36.0, 36.0], way=["no", "yes"])
+    d = Demand(np.array([[1000.0, -50.0]]), [1.0], crs=UTM)
+    s = Sites(np.array([[0.0, 0.0]]), crs=UTM)
+    r = reach_network(d, s, roads, 200.0, speed_field="kmh", oneway_field="way")
+    assert r.notes["demand_snap"].segment[0] == 1 and r.notes["demand_snap"].t[0] == 1.0  # snapped to the one-way road
+    assert r.matrix.toarray()[0, 0] == pytest.approx(100.0 + 50.0 / (5.0 / 3.6))

@@ -152,11 +152,24 @@ def test_lscp_objective_equals_highs(sample_run):
     assert (reach.coverage_count(plan.sites)[reach.coverable] > 0).all()
 
 
-def test_cli_prints_summary_and_caution(tmp_path):
+def test_cli_run_of_one_tool_on_the_sample_layers(tmp_path):
+    """The same job through `geocover run cover-all` with every option on the command line."""
     from geocover.cli import cli
 
-    result = CliRunner().invoke(cli, ["study", str(STUDY), "--out", str(tmp_path)], catch_exceptions=False)
+    gpkg = SAMPLE / "tarrow.gpkg"
+    args = [
+        "run", "cover-all",
+        "--grid", str(SAMPLE / "tarrow_population_100m.tif"), "--coarsen", "3",
+        "--candidates", f"{gpkg}:candidate_parcels", "--label-field", "parcel_id", "--fewest",
+        "--existing", f"{gpkg}:existing_stations", "--existing-role-field", "status",
+        "--exclude", f"{gpkg}:flood_zones; setback=50 m; where=zone_class in ('A', 'AE')",
+        "--exclude", f"{gpkg}:protected_land",
+        "--distance", "6 km", "--out", str(tmp_path),
+    ]
+    result = CliRunner().invoke(cli, args, catch_exceptions=False)
     assert result.exit_code == 0, result.output
-    assert "sites chosen" in result.output and "people served" in result.output and "people uncovered" in result.output
-    assert "status optimal" in result.output or "status feasible" in result.output
-    assert "authority having jurisdiction" in result.output
+    for words in ("sites chosen", "people served", "people uncovered", "gap", "authority having jurisdiction"):
+        assert words in result.output
+    manifest = json.loads((tmp_path / "manifest.json").read_text(encoding="utf-8"))
+    assert manifest["model"] == "cover-all"
+    assert manifest["plan"]["people_left_out"] == pytest.approx(0.0, abs=1e-6)  # LSCP serves everyone coverable

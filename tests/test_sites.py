@@ -25,10 +25,10 @@ CRS = "EPSG:32626"
 X0, Y0 = 500_000.0, 4_000_000.0  # somewhere in UTM zone 26N
 
 
-@pytest.fixture()
-def world(tmp_path):
-    """A tiny GeoPackage: candidate points and parcels, flood zones, protected land, existing stations."""
-    path = tmp_path / "world.gpkg"
+@pytest.fixture(scope="module")
+def world(tmp_path_factory):
+    """A tiny GeoPackage: candidate points and parcels, flood zones, protected land, existing stations (read only)."""
+    path = tmp_path_factory.mktemp("world") / "world.gpkg"
     xs, ys = np.meshgrid(np.arange(0, 2000, 100.0), np.arange(0, 1000, 100.0))
     points = gpd.GeoDataFrame(
         {"name": [f"p{i}" for i in range(xs.size)], "cost": np.linspace(1, 3, xs.size)},
@@ -261,6 +261,14 @@ def test_nearest_exclusion_matches_brute_force(world):
     ])
     brute = shapely.distance(pts[:, None], zones[None, :]).min(axis=1)
     np.testing.assert_allclose(record.nearest_exclusion_m, brute, rtol=0, atol=1e-9)
+    # parcels: the distance is from the whole footprint
+    _, parcels = screen_sites(
+        f"{world}:candidate_parcels",
+        exclude=[Exclusion(f"{world}:flood_zones", setback_m=15), Exclusion(f"{world}:protected_land")],
+    )
+    shapes = np.asarray(gpd.read_file(world, layer="candidate_parcels").geometry.array)
+    brute = shapely.distance(shapes[:, None], zones[None, :]).min(axis=1)
+    np.testing.assert_allclose(parcels.nearest_exclusion_m, brute, rtol=0, atol=1e-9)
     _, none = screen_sites(f"{world}:candidate_points")
     assert np.isinf(none.nearest_exclusion_m).all()
 
@@ -277,12 +285,25 @@ def test_close_pairs_match_all_pairwise_distances():
 
 
 def test_min_spacing_pairs_go_to_sites_but_not_between_two_kept_sites():
-    existing = gpd.GeoDataFrame(geometry=[Point(0, 0), Point(10, 0)], crs=CRS)
-    cands = gpd.GeoDataFrame(geometry=[Point(20, 0), Point(500, 0), Point(505, 0)], crs=CRS)
-    sites, record = screen_sites(cands, existing=existing, min_spacing_m="15 m")
-    # (0, 1) are both kept existing sites: no constraint; (1, 2) kept-candidate; (3, 4) candidates
-    assert sites.close_pairs.tolist() == [[1, 2], [3, 4]]
-    assert any("kept existing sites are closer" in n for n in record.notes)
+    existing = gpd.GeoDataFrame({"status": ["kept", "optional", "kept"]},
+                                geometry=[Point(0, 0), Point(10, 0), Point(13, 0)], crs=CRS)
+    cands = gpd.GeoDataFrame(geometry=[Point(24, 0), Point(500, 0), Point(505, 0)], crs=CRS)
+    sites, record = screen_sites(cands, existing=existing, existing_role_field="status", min_spacing_m="15 m")
+    # closer than 15 m: (0, 1) 10 m, (0, 2) 13 m, (1, 2) 3 m, (1, 3) 14 m, (2, 3) 11 m, (4, 5) 5 m.
+    # (0, 2) are both kept, so no constraint; kept-optional, optional/kept-candidate and candidate pairs are
+    assert sites.close_pairs.tolist() == [[0, 1], [1, 2], [1, 3], [2, 3], [4, 5]]
+    assert any("1 pair(s) of kept existing sites are closer" in n for n in record.notes)
+
+
+def test_lattice_labels_and_duplicate_exclusion_names():
+    from geocover.sites import lattice_candidates
+
+    lattice = lattice_candidates(box(0, 0, 300, 200), 100, crs=CRS)
+    sites, _ = screen_sites(lattice)
+    assert sites.label.tolist()[:3] == ["L0_0", "L0_1", "L0_2"]
+    zone = gpd.GeoDataFrame(geometry=[box(0, 0, 10, 10)], crs=CRS)
+    with pytest.raises(ParameterError, match="2 exclusion layers are named 'exclusion'"):
+        screen_sites(lattice, exclude=[Exclusion(zone), Exclusion(zone)])
 
 
 def test_summary_counts_per_rule(world):

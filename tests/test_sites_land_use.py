@@ -75,6 +75,26 @@ def test_parcel_shares_agree_with_exactextract(land_use):
     assert record.rule[record.verdict == "land_use"][0] == "less than 50% of the parcel on land use in classes (1, 2, 3)"
 
 
+def test_tiled_reads_give_the_same_answer(land_use, monkeypatch):
+    import geocover.sites as sites_module
+
+    path, _ = land_use
+    parcels = _parcels(seed=8)
+    rng = np.random.default_rng(2)
+    xy = rng.uniform(-20, SIZE * CELL + 20, size=(100, 2)) + [X0, Y0]
+    both = gpd.GeoDataFrame(
+        geometry=list(parcels.geometry) + list(gpd.points_from_xy(xy[:, 0], xy[:, 1])), crs=CRS
+    )
+    mask = LandUseMask(path, allowed=(2, 4, 6), min_share=0.3)
+    _, whole = screen_sites(both, land_use=mask)
+    monkeypatch.setattr(sites_module, "_MAX_WINDOW_CELLS", 10)
+    monkeypatch.setattr(sites_module, "_TILE_CELLS", 7)
+    _, tiled = screen_sites(both, land_use=mask)
+    np.testing.assert_allclose(tiled.land_use_share, whole.land_use_share, atol=1e-12)
+    assert tiled.verdict.tolist() == whole.verdict.tolist()
+    assert tiled.feature.tolist() == whole.feature.tolist()
+
+
 def test_forbidden_is_the_complement_of_allowed(land_use):
     path, _ = land_use
     parcels = _parcels(seed=5)

@@ -127,3 +127,32 @@ def test_adding_an_exclusion_zone_never_adds_a_kept_site(seed, parcels, zones, e
     before = kept([layer(z) for z in zones])
     after = kept([layer(z) for z in zones] + [layer(extra)])
     assert after <= before
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10_000), parcels=st.booleans(), zones=st.lists(zone_st, min_size=1, max_size=4))
+def test_kept_footprints_clear_every_zone_by_its_setback(seed, parcels, zones):
+    """Independent re-check with shapely's distance on the raw geometries, for random zones and setbacks."""
+    import shapely
+
+    rng = np.random.default_rng(seed)
+    xy = rng.uniform(0, 1000, size=(60, 2)) + [X0, Y0]
+    geoms = [box(x - 10, y - 5, x + 10, y + 5) for x, y in xy] if parcels else list(gpd.points_from_xy(xy[:, 0], xy[:, 1]))
+    cands = gpd.GeoDataFrame(geometry=geoms, crs=CRS)
+    rules, raw = [], []
+    for i, (x, y, w, h, setback) in enumerate(zones):
+        zone = box(X0 + x, Y0 + y, X0 + x + w, Y0 + y + h)
+        raw.append((zone, setback))
+        rules.append(Exclusion(gpd.GeoDataFrame(geometry=[zone], crs=CRS), setback_m=setback, name=f"z{i}"))
+    try:
+        _, record = screen_sites(cands, exclude=rules)
+    except InputError:
+        kept = np.zeros(len(geoms), dtype=bool)
+    else:
+        kept = record.site_index >= 0
+    for i, footprint in enumerate(geoms):
+        clear = all(
+            (footprint.distance(zone) >= setback) if setback > 0 else not footprint.intersects(zone)
+            for zone, setback in raw
+        )
+        assert kept[i] == clear

@@ -66,6 +66,7 @@ SITES = (
     FieldName("label_field", "field with the candidates' names", None),
     VectorLayer("existing", "existing facilities (points)", None),
     FieldName("existing_role_field", "field saying 'kept' or 'optional' per existing facility", None),
+    FieldName("existing_label_field", "field with the existing facilities' names", None),
     Choice("existing_role", "role of existing facilities without a role field", ExistingRole.KEPT, choices=ExistingRole),
     ExclusionList("exclude", "exclusion zones: layer, optional setback and filter (repeatable)", ()),
     Raster("land_use", "categorical land-use raster", None),

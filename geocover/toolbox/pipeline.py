@@ -156,6 +156,7 @@ def load_sites(p: Mapping[str, Any], crs: Any, run: RunContext) -> tuple[Sites, 
         study_area=p.get("study_area"),
         min_spacing_m=p.get("min_spacing"),
         label_field=p.get("label_field"),
+        existing_label_field=p.get("existing_label_field"),
         crs=crs,
     )
 
@@ -278,21 +279,6 @@ def _study_area_geometry(ref: Any, crs: Any) -> Any:
     return shapely.union_all(frame.geometry.values)
 
 
-def _exclusion_geometries(exclusions: Any, crs: Any) -> list[Any]:
-    from ..layers import LayerRef, read_vector, to_crs
-
-    geoms: list[Any] = []
-    for exc in exclusions or ():
-        layer = exc.layer
-        try:
-            frame = layer if not isinstance(layer, (LayerRef, str, Path)) else read_vector(layer, "exclusion zones")
-            frame = to_crs(frame, crs, "exclusion zones")
-            geoms.extend(frame.geometry.values)
-        except Exception as exc_:  # the map is a view; a layer the screen already read cannot fail here
-            logger.warning("map: could not draw exclusion layer %s (%s)", layer, exc_)
-    return geoms
-
-
 def _prepare(sections: Mapping[str, Mapping[str, Any]], run: RunContext) -> tuple[Demand, Sites, ScreeningRecord, Reach]:
     crs = sections["study"].get("crs")
     with run.step("reading demand"):
@@ -336,8 +322,8 @@ def _finish(
     study_area = _study_area_geometry(sp_.get("study_area") or dp.get("clip"), demand.crs)
     with run.step("service areas"):
         service_polygons = list(service_areas(reach, plan.sites, clip=study_area))
-    exclusion_geoms = _exclusion_geometries(sp_.get("exclude"), demand.crs)
-    notes = [str(n) for n in demand.summary.get("notes", [])]
+    exclusion_geoms = [g for geoms in record.zones.values() for g in geoms]
+    notes = [str(n) for n in demand.summary.get("notes", [])] + [str(n) for n in record.notes]
     return StudyOutcome(
         title=title,
         kind=kind,
@@ -638,8 +624,10 @@ def summary_lines(outcome: StudyOutcome) -> list[str]:
     ]
     if outcome.audit:
         a = outcome.audit
+        bound = a["aggregation_error_bound"]
+        bound_text = f"bound {bound:,.0f}" if bound is not None and math.isfinite(bound) else "no footprint bound for travel times"
         lines.append(
             f"  full-resolution:    {a['people_covered_full_resolution']:,.0f} people covered "
-            f"(aggregation error {a['aggregation_error']:+,.0f}, bound {a['aggregation_error_bound']:,.0f})"
+            f"(aggregation error {a['aggregation_error']:+,.0f}, {bound_text})"
         )
     return lines

@@ -20,7 +20,7 @@ def run(p: dict[str, Any], run: RunContext) -> ToolResult:
     with run.step("writing layers"):
         write_layers(
             p["out"],
-            {"screened_sites": screened_sites_layer(record), "sites": sites_frame(sites)},
+            {"screened_sites": screened_sites_layer(record, None, sites), "sites": sites_frame(sites)},
             inputs=tuple(input_files(p)),
         )
     counts = record.counts()
