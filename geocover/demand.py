@@ -227,6 +227,7 @@ def demand_from_grid(
     from pyproj import Transformer
     from affine import Affine
     from rasterio.enums import MaskFlags
+    from rasterio.errors import RasterioIOError
     from rasterio.windows import Window
 
     from .grid import (
@@ -335,8 +336,14 @@ def demand_from_grid(
             buf = buffers[j % 2]
             if buf is None:
                 buf = buffers[j % 2] = np.empty((min(wrows, height), width), dtype=src.dtypes[bidx - 1])
-            raw = src.read(bidx, window=win, out=buf[:h])
-            return raw, (src.read_masks(bidx, window=win) if use_mask else None)
+            try:
+                raw = src.read(bidx, window=win, out=buf[:h])
+                return raw, (src.read_masks(bidx, window=win) if use_mask else None)
+            except RasterioIOError as exc:  # a truncated or damaged file opens but cannot be read
+                raise LayerError(
+                    f"{what}: cannot read rows {row_off}-{row_off + h - 1} of band {bidx} ({exc}); the file looks "
+                    "truncated or damaged: is it a complete GeoTIFF? Copy or export it again"
+                ) from None
 
         pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="geocover-read")
         try:
