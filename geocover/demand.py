@@ -541,7 +541,7 @@ def _numeric_field(frame: "gpd.GeoDataFrame", field: str, what: str, param: str)
     if pd.api.types.is_bool_dtype(column) or not pd.api.types.is_numeric_dtype(column):
         raise LayerError(
             f"{what}: field {field!r} of {source} is not numeric (type {column.dtype}); store the people as "
-            "numbers (convert the field, e.g. CAST({field} AS REAL) in the GIS)"
+            f"numbers (convert the field, e.g. CAST({field} AS REAL) in the GIS)"
         )
     values = column.to_numpy(dtype=np.float64, na_value=np.nan)
     missing = np.flatnonzero(np.isnan(values))
