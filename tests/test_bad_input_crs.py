@@ -67,8 +67,6 @@ def test_layers_in_different_crss_are_reprojected_and_said_so(tiny, caplog):
     assert any("reproject" in r.getMessage() and "EPSG:4326" in r.getMessage() for r in caplog.records)
 
 
-@pytest.mark.xfail(strict=True, reason="the screening record's notes (reprojections, repairs) are logged but not "
-                   "carried into report.html or manifest.json: pipeline._finish only keeps the demand's notes (lead)")
 def test_the_report_says_a_layer_was_reprojected(tiny):
     import geopandas as gpd
 
