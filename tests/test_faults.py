@@ -238,3 +238,40 @@ def test_geodesic_coverage_also_honours_the_memory_budget(tmp_path):
     study.write_text(study.read_text().replace("[service]\n", '[service]\nmetric = "geodesic"\n'))
     result = invoke("study", str(study), "--out", str(tmp_path / "out"))
     assert_clean_exit(result, 1, "memory budget")
+
+
+def test_interrupt_during_a_solve_stops_the_solver_process(monkeypatch):
+    """Ctrl-C while CBC runs in its forked child must not leave the child solving on.
+
+    On a terminal the child gets the SIGINT too; in a notebook (the kernel is
+    interrupted alone) or any embedding that raises KeyboardInterrupt in the
+    parent, the child kept running until its own time limit.  The interrupt is
+    raised deterministically in the parent's first wait for the child.
+    """
+    import multiprocessing
+    import multiprocessing.connection
+    import time
+
+    import scipy.sparse as sp
+
+    import geocover as gc
+
+    rng = np.random.default_rng(5)
+    # big enough (> 20 000 nonzeros) for the models to run CBC in a forked child
+    reach = gc.Reach.from_sparse(sp.random(3000, 400, density=0.03, random_state=rng, format="csr"),
+                                 weight=rng.integers(1, 50, 3000).astype(float))
+    real_poll = multiprocessing.connection.Connection.poll
+
+    def poll(self, timeout=0.0):
+        if multiprocessing.active_children():  # the solver child is running: the user presses Ctrl-C
+            raise KeyboardInterrupt
+        return real_poll(self, timeout)
+
+    monkeypatch.setattr(multiprocessing.connection.Connection, "poll", poll)
+    with pytest.raises(KeyboardInterrupt):
+        gc.cover_most(reach, sites=20, time_limit=30)
+    monkeypatch.setattr(multiprocessing.connection.Connection, "poll", real_poll)
+    deadline = time.monotonic() + 5
+    while multiprocessing.active_children() and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert multiprocessing.active_children() == []
