@@ -1,5 +1,6 @@
-"""Fuzz the study file (hypothesis): whatever the values, `geocover study` exits 0, 1 or 2 with a
-message, and never with a traceback or an unexpected (non-geocover) exception.
+"""Fuzz the study file and the tool command line (hypothesis): whatever the values, `geocover study`
+and `geocover run TOOL` exit 0, 1 or 2 with a message, never with a traceback or an unexpected
+(non-geocover) exception.
 
 Bounded: 30 examples of one or two changed keys on the tiny study, each a
 CLI run in-process.  Values are drawn per key type (paths from a pool of real
@@ -182,3 +183,46 @@ def test_any_study_file_ends_in_a_message_never_a_traceback(layers, change):
         assert "unexpected error" not in text, context  # every failure is one of geocover's own, with its message
     else:
         assert "sites chosen" in text, context
+
+
+# ----------------------------------------------------------------------------- the same for `geocover run TOOL --name value`
+
+TOOL_BASE = {"grid": "pop.tif", "candidates": "tiny.gpkg:candidates", "distance": "800 m", "sites": "2"}
+TOOL_IDS = ["cover-most", "cover-all", "coverage", "screen-sites", "demand-grid", "audit", "tradeoff"]
+
+
+@st.composite
+def tool_args(draw):
+    from geocover.toolbox.registry import get_tool
+
+    tool = get_tool(draw(st.sampled_from(TOOL_IDS)))
+    names = [p.name for p in tool.params if p.name != "out"]
+    args = {k: v for k, v in TOOL_BASE.items() if k in names}
+    for _ in range(draw(st.integers(0, 3))):
+        key = draw(st.one_of(st.sampled_from(names), st.sampled_from(["bogus", "site"])))
+        value = draw(BY_TYPE.get(TYPES.get(key, ""), anything))
+        if value is None:
+            args.pop(key, None)
+        else:  # on the command line every value is text
+            args[key] = value if isinstance(value, str) else _toml_value(value)
+    return tool, args
+
+
+@settings(max_examples=20, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
+@given(case=tool_args())
+def test_any_tool_command_line_ends_in_a_message_never_a_traceback(layers, case, monkeypatch):
+    tool, args = case
+    monkeypatch.chdir(layers["dir"])  # relative paths on the command line start at the working directory
+    out = "fuzz_out.gpkg" if any(p.name == "out" and p.type_name == "output file" for p in tool.params) else "fuzz_out"
+    argv = ["run", tool.id] + [a for k, v in args.items() for a in (f"--{k.replace('_', '-')}", v)] + ["--out", out]
+    try:
+        result = invoke(*argv)
+    finally:
+        target = layers["dir"] / out
+        shutil.rmtree(target, ignore_errors=True) if target.is_dir() else target.unlink(missing_ok=True)
+    context = f"\n--- argv ---\n{argv}\n--- output ---\n{result.output}"
+    assert result.exception is None or isinstance(result.exception, SystemExit), repr(result.exception) + context
+    assert result.exit_code in (0, 1, 2), context
+    assert "Traceback" not in result.output and "unexpected error" not in result.output, context
+    if result.exit_code:
+        assert "error" in result.output.lower(), context
