@@ -579,18 +579,26 @@ def write_outputs(outcome: StudyOutcome, out_dir: Path, run: RunContext, name: s
         with contextlib.suppress(OSError):
             if target.resolve() in {Path(src).resolve() for src in inputs}:
                 raise OutputError(f"output {target.resolve()} is also an input; choose another output folder or name")
-    out_dir.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=f".{name}.staging.", dir=out_dir))
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        staging = Path(tempfile.mkdtemp(prefix=f".{name}.staging.", dir=out_dir))
+    except OSError as exc:
+        raise OutputError(f"cannot write into the output folder {out_dir} ({exc}); choose another one (--out)") from exc
     try:
         staged = {key: staging / path.name for key, path in outputs.items()}
-        with run.step("writing layers"):
-            layers = study_layers(outcome.reach, outcome.plan, outcome.record, outcome.service_polygons)
-            write_layers(staged["layers"], layers)
-        with run.step("writing report"):
-            write_report(staged["report"], report_data(outcome))
-        manifest = build_manifest(outcome, run, outputs)
-        with atomic_output(staged["manifest"]) as tmp:
-            tmp.write_text(json.dumps(manifest, indent=2, sort_keys=False) + os.linesep, encoding="utf-8")
+        try:
+            with run.step("writing layers"):
+                layers = study_layers(outcome.reach, outcome.plan, outcome.record, outcome.service_polygons)
+                write_layers(staged["layers"], layers)
+            with run.step("writing report"):
+                write_report(staged["report"], report_data(outcome))
+            manifest = build_manifest(outcome, run, outputs)
+            with atomic_output(staged["manifest"]) as tmp:
+                tmp.write_text(json.dumps(manifest, indent=2, sort_keys=False) + os.linesep, encoding="utf-8")
+        except OSError as exc:  # disk full, no permission...: say where, and that nothing was replaced
+            raise OutputError(
+                f"cannot write the outputs into {out_dir} ({exc}); the previous output there is left as it was"
+            ) from exc
         pending = [(staged[key], outputs[key]) for key in ("layers", "report", "manifest")]
         try:
             while pending:
