@@ -275,3 +275,31 @@ def test_interrupt_during_a_solve_stops_the_solver_process(monkeypatch):
     while multiprocessing.active_children() and time.monotonic() < deadline:
         time.sleep(0.05)
     assert multiprocessing.active_children() == []
+
+
+def test_disk_full_while_writing_keeps_the_previous_output_and_says_so(tiny, monkeypatch, previous_output):
+    import errno
+    import shutil
+
+    import geocover.report
+
+    out = shutil.copytree(previous_output, tiny["dir"] / "out")
+    before = snapshot(out)
+    write_study(tiny["dir"], edit(STUDY, ("sites = 2", "sites = 1")))
+
+    def full(*args, **kwargs):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(geocover.report, "write_report", full)
+    result = invoke("study", str(tiny["dir"] / "study.toml"), "--out", str(out))
+    text = assert_clean_exit(result, 1, "No space left on device", str(out), "previous output")
+    assert "unexpected error" not in text
+    assert snapshot(out) == before
+
+
+def test_output_folder_that_cannot_be_made_is_named(tiny):
+    blocker = tiny["dir"] / "a_file"
+    blocker.write_text("not a folder")
+    # the output folder would have to be made inside a file
+    result = invoke("study", str(write_study(tiny["dir"])), "--out", str(blocker / "out"))
+    assert_clean_exit(result, 1, "cannot write into the output folder", str(blocker / "out"), "--out")
