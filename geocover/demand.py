@@ -227,6 +227,7 @@ def demand_from_grid(
     from pyproj import Transformer
     from affine import Affine
     from rasterio.enums import MaskFlags
+    from rasterio.errors import RasterioIOError
     from rasterio.windows import Window
 
     from .grid import (
@@ -335,8 +336,14 @@ def demand_from_grid(
             buf = buffers[j % 2]
             if buf is None:
                 buf = buffers[j % 2] = np.empty((min(wrows, height), width), dtype=src.dtypes[bidx - 1])
-            raw = src.read(bidx, window=win, out=buf[:h])
-            return raw, (src.read_masks(bidx, window=win) if use_mask else None)
+            try:
+                raw = src.read(bidx, window=win, out=buf[:h])
+                return raw, (src.read_masks(bidx, window=win) if use_mask else None)
+            except RasterioIOError as exc:  # a truncated or damaged file opens but cannot be read
+                raise LayerError(
+                    f"{what}: cannot read rows {row_off}-{row_off + h - 1} of band {bidx} ({exc}); the file looks "
+                    "truncated or damaged: is it a complete GeoTIFF? Copy or export it again"
+                ) from None
 
         pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="geocover-read")
         try:
@@ -534,7 +541,7 @@ def _numeric_field(frame: "gpd.GeoDataFrame", field: str, what: str, param: str)
     if pd.api.types.is_bool_dtype(column) or not pd.api.types.is_numeric_dtype(column):
         raise LayerError(
             f"{what}: field {field!r} of {source} is not numeric (type {column.dtype}); store the people as "
-            "numbers (convert the field, e.g. CAST({field} AS REAL) in the GIS)"
+            f"numbers (convert the field, e.g. CAST({field} AS REAL) in the GIS)"
         )
     values = column.to_numpy(dtype=np.float64, na_value=np.nan)
     missing = np.flatnonzero(np.isnan(values))

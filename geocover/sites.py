@@ -465,6 +465,7 @@ def _land_use(
     sites when that window is very large.
     """
     import geopandas as gpd
+    from rasterio.errors import RasterioIOError
     from rasterio.windows import Window
 
     n = len(located.xy)
@@ -504,7 +505,13 @@ def _land_use(
                 data = np.ma.masked_all((1, 1), dtype=np.int64)
                 wr0 = wc0 = wr1 = wc1 = -(10**12)  # nothing is on the raster
             else:
-                data = src.read(1, window=Window(wc0, wr0, wc1 - wc0 + 1, wr1 - wr0 + 1), masked=True)
+                try:
+                    data = src.read(1, window=Window(wc0, wr0, wc1 - wc0 + 1, wr1 - wr0 + 1), masked=True)
+                except RasterioIOError as exc:  # a truncated file opens but cannot be read
+                    raise LayerError(
+                        f"land-use raster {mask.raster}: cannot read its cells ({exc}); the file looks truncated or "
+                        "damaged: is it a complete GeoTIFF? Copy or export it again"
+                    ) from None
             codes_all = np.asarray(np.ma.getdata(data))
             invalid_all = np.ma.getmaskarray(data)
             if np.issubdtype(codes_all.dtype, np.floating):

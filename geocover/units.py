@@ -12,6 +12,7 @@
 
 from __future__ import annotations
 
+import math
 import re
 
 from .errors import ParameterError
@@ -80,6 +81,8 @@ def parse_quantity(
                 f"{next(iter(units))}' (units: {', '.join(sorted(set(units)))})",
                 param,
             )
+        if not math.isfinite(value):
+            raise ParameterError(f"{name}: expected a finite {what} such as '5 km', got {value!r}", param)
         return float(value) * units[default_unit]
     if not isinstance(value, str):
         raise ParameterError(f"{name}: expected a {what} such as '5 km', got {type(value).__name__}", param)

@@ -250,18 +250,24 @@ def solve_mip(
     child.close()
     deadline = t0 + time_limit + 1.0
     res: MipResult | None = None
-    while True:
-        left = deadline - time.perf_counter()
-        if left <= 0:
-            break
-        if parent.poll(min(left, 0.5)):
-            try:
-                res = parent.recv()
-            except EOFError:
-                res = None
-            break
-        if not proc.is_alive() and not parent.poll(0):
-            break
+    try:
+        while True:
+            left = deadline - time.perf_counter()
+            if left <= 0:
+                break
+            if parent.poll(min(left, 0.5)):
+                try:
+                    res = parent.recv()
+                except EOFError:
+                    res = None
+                break
+            if not proc.is_alive() and not parent.poll(0):
+                break
+    except BaseException:  # Ctrl-C in the parent alone (a notebook): do not leave the child solving on
+        if proc.is_alive():
+            proc.kill()
+        proc.join(5)
+        raise
     if res is None:
         if proc.is_alive():
             proc.kill()

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import difflib
 import enum
+import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -239,6 +240,8 @@ class Number(Param):
             number = float(value)
         except (TypeError, ValueError):
             raise self.fail(f"expected a number, got {value!r}") from None
+        if not math.isfinite(number):  # TOML allows nan and inf; int(inf) would raise OverflowError
+            raise self.fail(f"expected a finite number, got {value!r}")
         if self.integer:
             if number != int(number):
                 raise self.fail(f"expected a whole number, got {value!r}")

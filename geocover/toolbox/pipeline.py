@@ -423,7 +423,7 @@ def input_files(params: Mapping[str, Any]) -> list[Path]:
         elif hasattr(value, "raster") and hasattr(value, "min_share"):
             walk(value.raster)
 
-    walk({k: v for k, v in params.items() if k != "output"})
+    walk({k: v for k, v in params.items() if k not in ("output", "out")})  # a tool's own output is not an input
     unique: list[Path] = []
     for path in found:
         resolved = path.resolve()
@@ -554,24 +554,63 @@ def report_data(outcome: StudyOutcome) -> Any:
 
 
 def write_outputs(outcome: StudyOutcome, out_dir: Path, run: RunContext, name: str = "study") -> dict[str, Path]:
-    """Write ``NAME.gpkg``, ``report.html`` and ``manifest.json`` into ``out_dir``, each atomically."""
+    """Write ``NAME.gpkg``, ``report.html`` and ``manifest.json`` into ``out_dir`` as one set.
+
+    All three are written into a hidden staging folder inside ``out_dir``
+    first and moved into place only when every one is complete, so an error
+    or a Ctrl-C while writing leaves the previous output untouched (never a
+    new GeoPackage beside an old report).  A Ctrl-C during the final moves
+    completes them before it is passed on.  The staging folder is always
+    removed.
+    """
+    import contextlib
+    import shutil
+    import tempfile
+
+    from ..errors import OutputError
     from ..layers import atomic_output, write_layers
     from ..outputs import study_layers
     from ..report import write_report
 
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
     inputs = tuple(input_files(outcome.params))
-    gpkg = out_dir / f"{name}.gpkg"
-    with run.step("writing layers"):
-        layers = study_layers(outcome.reach, outcome.plan, outcome.record, outcome.service_polygons)
-        write_layers(gpkg, layers, inputs=inputs)
-    with run.step("writing report"):
-        report = write_report(out_dir / "report.html", report_data(outcome))
-    outputs = {"layers": gpkg, "report": report, "manifest": out_dir / "manifest.json"}
-    manifest = build_manifest(outcome, run, outputs)
-    with atomic_output(outputs["manifest"], inputs) as tmp:
-        tmp.write_text(json.dumps(manifest, indent=2, sort_keys=False) + os.linesep, encoding="utf-8")
+    outputs = {"layers": out_dir / f"{name}.gpkg", "report": out_dir / "report.html", "manifest": out_dir / "manifest.json"}
+    for target in outputs.values():  # refuse before any work, not after the first file
+        with contextlib.suppress(OSError):
+            if target.resolve() in {Path(src).resolve() for src in inputs}:
+                raise OutputError(f"output {target.resolve()} is also an input; choose another output folder or name")
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        staging = Path(tempfile.mkdtemp(prefix=f".{name}.staging.", dir=out_dir))
+    except OSError as exc:
+        raise OutputError(f"cannot write into the output folder {out_dir} ({exc}); choose another one (--out)") from exc
+    try:
+        staged = {key: staging / path.name for key, path in outputs.items()}
+        try:
+            with run.step("writing layers"):
+                layers = study_layers(outcome.reach, outcome.plan, outcome.record, outcome.service_polygons)
+                write_layers(staged["layers"], layers)
+            with run.step("writing report"):
+                write_report(staged["report"], report_data(outcome))
+            manifest = build_manifest(outcome, run, outputs)
+            with atomic_output(staged["manifest"]) as tmp:
+                tmp.write_text(json.dumps(manifest, indent=2, sort_keys=False) + os.linesep, encoding="utf-8")
+        except OSError as exc:  # disk full, no permission...: say where, and that nothing was replaced
+            raise OutputError(
+                f"cannot write the outputs into {out_dir} ({exc}); the previous output there is left as it was"
+            ) from exc
+        pending = [(staged[key], outputs[key]) for key in ("layers", "report", "manifest")]
+        try:
+            while pending:
+                os.replace(*pending[0])
+                pending.pop(0)
+        except KeyboardInterrupt:  # every file is complete: finish the set, then stop
+            for src, dst in pending:
+                if src.exists():
+                    os.replace(src, dst)
+            raise
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
     return outputs
 
 

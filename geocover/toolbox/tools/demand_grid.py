@@ -19,12 +19,12 @@ def _validate(p: dict[str, Any]) -> list[ParameterError]:
 def run(p: dict[str, Any], run: RunContext) -> ToolResult:
     from ...layers import write_layers
     from ...outputs import demand_frame
-    from ..pipeline import load_demand
+    from ..pipeline import input_files, load_demand
 
     with run.step("reading demand"):
         demand = load_demand(p, p.get("crs"), run)
     with run.step("writing layers"):
-        write_layers(p["out"], {"demand": demand_frame(demand)}, inputs=(p["grid"],))
+        write_layers(p["out"], {"demand": demand_frame(demand)}, inputs=tuple(input_files(p)))
     s = demand.summary
     lines = [
         f"demand-grid: {len(demand):,} demand points, {demand.total:,.0f} people (in: {s.get('people_in', demand.total):,.0f})",
