@@ -112,7 +112,10 @@ def read_vector(ref: LayerRef | str, what: str = "layer", allow_empty: bool = Fa
     if ref.layer is not None and ref.layer not in layers:
         raise LayerError(f"{what}: {ref.path} has no layer {ref.layer!r}; its layers are: {', '.join(layers) or 'none'}")
     try:
-        frame = gpd.read_file(ref.path, layer=ref.layer or (layers[0] if layers else None), engine="pyogrio")
+        # the index is the feature id (fid) a desktop GIS shows, so that messages name features as users see them
+        frame = gpd.read_file(
+            ref.path, layer=ref.layer or (layers[0] if layers else None), engine="pyogrio", fid_as_index=True
+        )
     except Exception as exc:
         raise LayerError(f"{what}: cannot read {ref} ({exc}); is the file complete and a format GDAL reads?") from None
     if frame.crs is None:

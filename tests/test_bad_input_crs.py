@@ -115,9 +115,14 @@ def test_geographic_inputs_get_a_local_projected_working_crs(tiny):
     assert any("reprojected from EPSG:4326" in note for note in demand.summary["notes"])
 
 
-@pytest.mark.xfail(strict=True, reason="a bare-number distance is read as metres before the inputs' CRS is known; "
-                   "with geographic inputs it is probably meant in degrees and should be refused (study/params design, lead)")
 def test_distance_without_unit_with_geographic_inputs_is_refused(tiny):
     write_grid(tiny["grid"], np.ones((20, 20), "float32"), -27.01, 45.14, 0.001, crs="EPSG:4326")
     result = _run(tiny, edit(STUDY, ('distance = "800 m"', "distance = 0.01")))
     assert_clean_exit(result, 2, "'distance'", "unit")
+
+
+def test_distance_with_a_unit_is_fine_with_geographic_inputs(tiny):
+    # the control for the test above: the same study with the unit written passes the check
+    write_grid(tiny["grid"], np.ones((20, 20), "float32"), -27.01, 45.14, 0.001, crs="EPSG:4326")
+    result = _run(tiny, edit(STUDY, ('distance = "800 m"', 'distance = "1.1 km"')))
+    assert result.exit_code != 2, result.output

@@ -47,7 +47,7 @@ def test_mixed_geometry_types_in_population_areas_are_named():
 
     areas = _frame([Point(X0, Y0), box(X0, Y0, X0 + 10, Y0 + 10), LineString([(X0, Y0), (X0 + 5, Y0)])], pop=[1.0, 2.0, 3.0])
     with pytest.raises(LayerError, match=r"2 feature\(s\) that are not polygons \(ids 0, 2\); keep only polygons"):
-        gc.demand_from_areas(areas, population="pop")
+        gc.demand_from_areas(areas, population="pop")  # an in-memory frame: its own index
 
 
 def test_mixed_and_empty_candidate_geometries_are_screened_out_with_a_reason():
@@ -69,7 +69,7 @@ def test_population_with_no_geometry_is_named(tiny):
                      crs="EPSG:32626").to_file(tiny["dir"] / "areas.gpkg", layer="a")
     study = write_study(tiny["dir"], edit(STUDY, ('grid = "pop.tif"', 'areas = "areas.gpkg:a"\npopulation = "pop"')))
     result = invoke("study", str(study), "--out", str(tiny["dir"] / "out"))
-    assert_clean_exit(result, 1, "population areas", "2 feature(s)", "people but no geometry", "ids 0, 2")
+    assert_clean_exit(result, 1, "population areas", "2 feature(s)", "people but no geometry", "ids 1, 3")
 
 
 def test_candidates_far_outside_the_study_area_are_screened_out():

@@ -174,15 +174,10 @@ def test_filter_on_a_field_that_does_not_exist_lists_the_fields(tiny):
     assert_clean_exit(result, 1, "filter", "layer flood has no field 'zoneclass'", "zone_class")
 
 
-@pytest.mark.xfail(strict=True, reason="check_model does not flag 'sites' and 'budget' given together; cover_most refuses "
-                   "only after demand, screening and coverage have run (exit 1). Belongs in pipeline.check_model (lead)")
 def test_sites_and_budget_together_is_a_usage_error_before_any_work(tiny):
     assert_clean_exit(_run(tiny, edit(STUDY, ("sites = 2", "sites = 2\nbudget = 3"))), 2, "[model]", "sites", "budget")
 
 
-@pytest.mark.xfail(strict=True, reason="an infeasible cover-twice (first_floor out of reach with the sites allowed) is "
-                   "written with exit 0 and only 'status infeasible, objective nan, gap inf %'; it should say which "
-                   "parameter to change (models/pipeline owners)")
 def test_infeasible_floor_says_what_to_change(tiny):
     out = assert_clean_exit(_run(tiny, edit(STUDY, ('kind = "cover-most"', 'kind = "cover-twice"\nfirst_floor = "100 %"'))), 0)
     assert "first_floor" in out

@@ -51,13 +51,13 @@ def test_non_numeric_population_field_names_the_field_and_the_fix(tiny):
 def test_negative_population_names_the_first_offenders(tiny):
     pop = [5.0, -1.0, 3.0, -7.0, 2.0]
     out = assert_clean_exit(_run(tiny, _areas(tiny, pop)), 1, "field 'pop'", "negative", "2 feature(s)", "zero or more")
-    assert "ids 1, 3" in out  # row positions of the two offenders, in order
+    assert "ids 2, 4" in out  # GeoPackage fids of the two offenders, in order
     assert "-1.0" in out
 
 
 def test_missing_population_names_the_features(tiny):
     out = assert_clean_exit(_run(tiny, _areas(tiny, [5.0, np.nan, np.nan])), 1, "field 'pop'", "no value", "2 feature(s)")
-    assert "ids 1, 2" in out and "fill them in" in out
+    assert "ids 2, 3" in out and "fill them in" in out
 
 
 def test_many_offenders_are_counted_and_the_list_is_cut(tiny):
@@ -66,8 +66,6 @@ def test_many_offenders_are_counted_and_the_list_is_cut(tiny):
     assert len(out) < 1000
 
 
-@pytest.mark.xfail(strict=True, reason="feature ids in messages are 0-based row positions (pyogrio's default index), "
-                   "not the GeoPackage fid a desktop GIS shows (1-based); layers.read_vector/demand owners")
 def test_offender_ids_are_the_fids_a_gis_shows(tiny):
     out = assert_clean_exit(_run(tiny, _areas(tiny, [5.0, -1.0])), 1, "negative")
     assert "ids 2" in out  # the second feature of a GeoPackage has fid 2

@@ -231,8 +231,6 @@ def test_coverage_too_big_for_the_memory_budget_is_refused_with_a_coarsening_tha
     assert_clean_exit(result, 0, "status optimal")
 
 
-@pytest.mark.xfail(strict=True, reason="memory_gb is applied to planar coverage only: reach_geodesic and reach_network "
-                   "take no memory budget and pipeline.build_reach does not pass one (coverage/network owners)")
 def test_geodesic_coverage_also_honours_the_memory_budget(tmp_path):
     study = _big_grid_study(tmp_path, cells=100)  # 1 000 000 pairs: 15 MB, over the 10 MB budget
     study.write_text(study.read_text().replace("[service]\n", '[service]\nmetric = "geodesic"\n'))

@@ -93,11 +93,12 @@ def test_kept_points_clear_every_zone_by_the_setback(world, setback):
         assert not shapely.intersects(kept[:, None], zones[None, :]).any()
     # and every rejected one really is too close to the zone named in its record
     raw = gpd.read_file(world, layer="candidate_points")
-    names = {"flood_zones": gpd.read_file(world, layer="flood_zones"), "protected_land": gpd.read_file(world, layer="protected_land")}
+    # feature ids are the GeoPackage fids a desktop GIS shows
+    names = {lyr: gpd.read_file(world, layer=lyr, fid_as_index=True) for lyr in ("flood_zones", "protected_land")}
     rejected = np.flatnonzero(record.verdict == Verdict.EXCLUDED.value)
     assert len(rejected) > 0
     for i in rejected:
-        zone = names[record.layer[i]].geometry.iloc[record.feature[i]]
+        zone = names[record.layer[i]].geometry.loc[record.feature[i]]
         d = raw.geometry.iloc[i].distance(zone)
         assert (d < setback) if setback > 0 else raw.geometry.iloc[i].intersects(zone)
     assert len(sites) == int((record.site_index >= 0).sum())
@@ -128,13 +129,13 @@ def test_parcels_are_screened_by_their_whole_footprint(world):
     )
     assert record.verdict.tolist() == ["excluded", "excluded", "kept", "excluded"]
     assert record.rule[0] == "within 30 m of flood_zones where zone_class in ('A', 'AE')"
-    assert record.layer[0] == "flood_zones" and record.feature[0] == 0
+    assert record.layer[0] == "flood_zones" and record.feature[0] == 1  # the first feature's fid
     # the parcel's representative point lies inside the parcel
     parcels = gpd.read_file(world, layer="candidate_parcels")
     assert shapely.contains_xy(np.asarray(parcels.geometry.array), record.xy[:, 0], record.xy[:, 1]).all()
     assert sites.label.tolist() == ["clear"]
     assert sites.cost.tolist() == [7.0]
-    assert sites.source.tolist() == [2]
+    assert sites.source.tolist() == [3]  # the fid of the third candidate
     assert record.site_index.tolist() == [-1, -1, 0, -1]
     # 'near' is 20 m from flood A: the record keeps that distance (to the raw zone, not the buffer)
     assert record.nearest_exclusion_m[3] == pytest.approx(20.0)
@@ -143,8 +144,8 @@ def test_parcels_are_screened_by_their_whole_footprint(world):
 def test_where_filter_selects_zones_and_names_unknown_fields(world):
     _, all_zones = screen_sites(f"{world}:candidate_points", exclude=[Exclusion(f"{world}:flood_zones")])
     _, deep = screen_sites(f"{world}:candidate_points", exclude=[Exclusion(f"{world}:flood_zones", where="depth_m >= 0.5")])
-    assert set(all_zones.feature[all_zones.verdict == "excluded"]) == {0, 1, 2}
-    assert set(deep.feature[deep.verdict == "excluded"]) == {1}
+    assert set(all_zones.feature[all_zones.verdict == "excluded"]) == {1, 2, 3}  # fids
+    assert set(deep.feature[deep.verdict == "excluded"]) == {2}
     with pytest.raises(ParameterError) as err:
         screen_sites(f"{world}:candidate_points", exclude=[Exclusion(f"{world}:flood_zones", where="depth >= 0.5")])
     message = str(err.value)
@@ -167,7 +168,7 @@ def test_existing_sites_come_first_with_roles_and_are_flagged_not_removed(world,
     assert sites.cost[:2].tolist() == [0.5, 0.0]
     assert record.site_index[:2].tolist() == [0, 1]
     assert record.verdict[1] == "kept" and record.rule[1].startswith("existing (kept), flagged: within 10 m of flood_zones")
-    assert record.layer[1] == "flood_zones" and record.feature[1] == 0
+    assert record.layer[1] == "flood_zones" and record.feature[1] == 1
     assert record.rule[0] == "existing (optional)"
     assert any("old_flooded" in r.message for r in caplog.records)
     assert any("old_flooded" in note for note in record.notes)

@@ -33,6 +33,7 @@ __all__ = [
     "Raster",
     "FieldName",
     "Distance",
+    "Metres",
     "Duration",
     "Number",
     "Share",
@@ -187,9 +188,29 @@ class Text(Param):
         return value
 
 
+class Metres(float):
+    """A distance in metres that remembers whether the user wrote a unit.
+
+    A bare number is read as metres; with geographic inputs that may have
+    been meant in degrees, so the tools refuse it there (see
+    :func:`geocover.toolbox.pipeline.check_distance_units`).
+    """
+
+    unitless: bool = False
+
+    def __new__(cls, value: float, unitless: bool = False) -> "Metres":
+        obj = super().__new__(cls, value)
+        obj.unitless = unitless
+        return obj
+
+
+def _has_unit(value: Any) -> bool:
+    return isinstance(value, str) and any(ch.isalpha() for ch in value)
+
+
 @dataclass(frozen=True)
 class Distance(Param):
-    """A distance with a unit, e.g. ``5 km``; stored in metres."""
+    """A distance with a unit, e.g. ``5 km``; stored in metres (a bare number is metres)."""
 
     type_name: str = "distance"
     unit: str = "m"
@@ -199,10 +220,12 @@ class Distance(Param):
     def convert(self, value: Any, ctx: Context) -> Any:
         if value is None:
             return None
+        if isinstance(value, Metres):
+            return value
         metres = parse_distance(value, "m", self.name)
         if metres < self.minimum or (metres == 0 and not self.allow_zero):
             raise self.fail(f"must be {'zero or ' if self.allow_zero else ''}more than 0 m, got {value!r}")
-        return metres
+        return Metres(metres, unitless=not _has_unit(value))
 
 
 @dataclass(frozen=True)

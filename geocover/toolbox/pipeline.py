@@ -28,6 +28,7 @@ __all__ = [
     "check_sites",
     "check_service",
     "check_model",
+    "check_distance_units",
     "load_demand",
     "load_sites",
     "build_reach",
@@ -90,10 +91,52 @@ def check_service(p: Mapping[str, Any]) -> list[ParameterError]:
     return problems
 
 
+def _source_crs(dp: Mapping[str, Any]) -> Any:
+    """The CRS of the demand source, read from its metadata only (None when it cannot be read here)."""
+    try:
+        if dp.get("grid") is not None:
+            import rasterio
+
+            with rasterio.open(dp["grid"]) as src:
+                return src.crs
+        ref = dp.get("areas") if dp.get("areas") is not None else dp.get("points")
+        if ref is None or not hasattr(ref, "path"):
+            return getattr(ref, "crs", None)
+        import pyogrio
+
+        return pyogrio.read_info(ref.path, layer=ref.layer)["crs"]
+    except Exception:  # the reader itself reports an unreadable source, with its own message
+        return None
+
+
+def check_distance_units(dp: Mapping[str, Any], svc: Mapping[str, Any]) -> list[ParameterError]:
+    """Refuse a distance written without a unit when the demand is in a geographic CRS (degrees?)."""
+    distance = svc.get("distance")
+    if distance is None or not getattr(distance, "unitless", False):
+        return []
+    source = _source_crs(dp)
+    if source is None:
+        return []
+    from pyproj import CRS
+
+    crs = CRS.from_user_input(source)
+    if not crs.is_geographic:
+        return []
+    return [
+        ParameterError(
+            f"service: 'distance' {float(distance):g} has no unit and the demand is in the geographic CRS "
+            f"{crs.to_string()} (degrees); write it with a unit, e.g. '5 km' or '{float(distance):g} m'",
+            "distance",
+        )
+    ]
+
+
 def check_model(p: Mapping[str, Any], kind: ModelKind) -> list[ParameterError]:
     problems = []
     if kind == ModelKind.COVER_MOST and p.get("sites") is None and p.get("budget") is None:
         problems.append(ParameterError("cover-most: give 'sites' (how many new sites) or 'budget'", "sites"))
+    if kind == ModelKind.COVER_MOST and p.get("sites") is not None and p.get("budget") is not None:
+        problems.append(ParameterError("cover-most: give 'sites' or 'budget', not both; remove one of them", "budget"))
     if kind == ModelKind.COVER_TWICE and p.get("sites") is None:
         problems.append(ParameterError("cover-twice: give 'sites' (how many new sites)", "sites"))
     if kind == ModelKind.COVER_TARGET and p.get("share") is None:
@@ -181,6 +224,12 @@ def build_reach(p: Mapping[str, Any], demand: Demand, sites: Sites, run: RunCont
     from .. import coverage
 
     if metric == ServiceMetric.GEODESIC:
+        from pyproj import CRS
+
+        if demand.crs is not None and not CRS.from_user_input(demand.crs).is_geographic:
+            # geodesic and planar distances differ by well under 1 % in a local projected CRS
+            pairs = coverage.estimate_pairs(demand, sites, 1.01 * p["distance"])
+            coverage.check_memory(pairs, p["memory_gb"], len(demand), "geodesic coverage")
         return coverage.reach_geodesic(demand, sites, p["distance"])
     return coverage.reach_planar(demand, sites, p["distance"], memory_budget_gb=p["memory_gb"])
 
@@ -537,7 +586,8 @@ def report_data(outcome: StudyOutcome) -> Any:
         screening=outcome.record.counts(),
         parameters={f"{sec}.{k}": jsonable(v) for sec, vals in outcome.params.items() for k, v in vals.items() if v not in (None, ())},
         inputs=[{"file": Path(i["path"]).name, "bytes": i["bytes"], "sha256": i["sha256"][:16] + "..."} for i in inputs_manifest(outcome.params)],
-        notes=list(outcome.notes) + list(plan.log),
+        notes=([f"Infeasible: {infeasible_hint(outcome)}"] if infeasible_hint(outcome) else [])
+        + list(outcome.notes) + list(plan.log),
         tradeoff=tradeoff_rows(outcome.curve, outcome.reach),
         tradeoff_marks=tradeoff_marks(outcome.curve),
         demand_xy=demand.xy,
@@ -614,6 +664,24 @@ def write_outputs(outcome: StudyOutcome, out_dir: Path, run: RunContext, name: s
     return outputs
 
 
+def infeasible_hint(outcome: StudyOutcome) -> str | None:
+    """What to change when no plan satisfies the model's constraints."""
+    if outcome.plan.status.value != "infeasible":
+        return None
+    mp, sp_ = outcome.params.get("model", {}), outcome.params.get("sites", {})
+    spacing = sp_.get("min_spacing")
+    relax = f"relax 'min_spacing' ({spacing:g} m) or " if spacing else ""
+    if outcome.kind == ModelKind.COVER_TWICE.value:
+        return (f"no plan covers {100 * mp.get('first_floor', 0):.0f} % of the people once with {mp.get('sites')} new "
+                f"sites: {relax}lower 'first_floor' or raise 'sites'")
+    if outcome.kind == ModelKind.COVER_TARGET.value:
+        return f"no plan reaches the coverage 'share' asked for: {relax}lower 'share'"
+    if spacing:
+        return (f"the spacing rule leaves some coverable people with no site that may open next to the kept ones: "
+                f"relax 'min_spacing' ({spacing:g} m) or make the nearby existing facilities optional")
+    return "the constraints admit no plan; check the kept sites, the budget and the spacing rule"
+
+
 def summary_lines(outcome: StudyOutcome) -> list[str]:
     """The short summary the CLI prints."""
     plan = outcome.plan
@@ -630,6 +698,9 @@ def summary_lines(outcome: StudyOutcome) -> list[str]:
         f"  solver:             {plan.solver}, status {plan.status.value}, objective {plan.objective:,.6g}, "
         f"bound {plan.bound:,.6g}, gap {100 * plan.gap:.2f} %",
     ]
+    hint = infeasible_hint(outcome)
+    if hint:
+        lines.append(f"  infeasible:         {hint}")
     if outcome.audit:
         a = outcome.audit
         bound = a["aggregation_error_bound"]

@@ -28,7 +28,7 @@ from ..choices import ModelKind
 from ..errors import ParameterError, StudyFileError
 from . import options
 from .params import Context, OutputFolder, Param, Text, suggest
-from .pipeline import check_demand, check_model, check_service, check_sites
+from .pipeline import check_demand, check_distance_units, check_model, check_service, check_sites
 from .tool import RunContext
 
 __all__ = ["SECTIONS", "TOP_LEVEL", "Study", "load_study", "run_study"]
@@ -121,6 +121,7 @@ def load_study(path: Path | str, out: Path | str | None = None) -> Study:
         ):
             problems.extend(f"[{group}] {p}" for p in check(sections[group]))
         problems.extend(f"[model] {p}" for p in check_model(sections["model"], kind))
+        problems.extend(f"[service] {p}" for p in check_distance_units(sections["demand"], sections["service"]))
     if problems:
         lines = [f"study file {path}: {len(problems)} problem(s):"] + [f"  - {p}" for p in problems]
         raise StudyFileError("\n".join(lines))

@@ -10,9 +10,10 @@ from ._common import params_of, split_sections
 
 
 def _validate(p: dict[str, Any]) -> list[Any]:
-    from ..pipeline import check_demand, check_service, check_sites
+    from ..pipeline import check_demand, check_distance_units, check_service, check_sites
 
-    return check_demand(p) + check_sites(p) + check_service(p)
+    problems = check_demand(p) + check_sites(p) + check_service(p)
+    return problems or check_distance_units(p, p)
 
 
 def run(p: dict[str, Any], run: RunContext) -> ToolResult:

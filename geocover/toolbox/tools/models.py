@@ -18,9 +18,10 @@ _ALL_GROUPS = ("study", "demand", "sites", "service", "model")
 
 def _validator(kind: ModelKind) -> Callable[[dict[str, Any]], list[Any]]:
     def validate(p: dict[str, Any]) -> list[Any]:
-        from ..pipeline import check_demand, check_model, check_service, check_sites
+        from ..pipeline import check_demand, check_distance_units, check_model, check_service, check_sites
 
-        return check_demand(p) + check_sites(p) + check_service(p) + check_model(p, kind)
+        problems = check_demand(p) + check_sites(p) + check_service(p) + check_model(p, kind)
+        return problems or check_distance_units(p, p)
 
     return validate
 
