@@ -33,6 +33,8 @@ def lagrangian_cover(
     iterations: int = 400,
     deadline: float | None = None,
     heuristic_every: int = 10,
+    patience: int = 30,
+    f_min: float = 1e-4,
 ) -> tuple[float, np.ndarray | None]:
     """Best Lagrangian bound and the best cover found from the multipliers.
 
@@ -76,10 +78,10 @@ def lagrangian_cover(
             since = 0
         else:
             since += 1
-            if since >= 30:
+            if since >= patience:
                 f *= 0.5
                 since = 0
-        if f < 1e-4 or best_bound >= best_obj - 1e-9 * scale:
+        if f < f_min or best_bound >= best_obj - 1e-9 * scale:
             break
         if it % heuristic_every == 0:
             # repair: start from the Lagrangian columns, cover the rest by reduced-cost greedy

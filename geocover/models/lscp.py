@@ -19,6 +19,7 @@ from ..values import Plan, Reach, SolveStatus
 from ._common import Clock, check_common, check_reach, conflict_matrix, integral, kept_conflict, make_plan, prepare, violates_spacing
 from .greedy import greedy_cover, prune_cover
 from .lagrange import lagrangian_cover
+from .localsearch import cover_local_search
 from .reduce import components, reduce_lscp
 from .solver import solve_mip
 
@@ -28,6 +29,10 @@ __all__ = ["cover_all", "solve_cover_core"]
 
 # components smaller than this are solved in-process (a fork costs more than the solve)
 _GUARD_NNZ = 20_000
+# local-search step budget: small instances get a short polish, large ones up to _LS_MAX_STEPS
+_LS_MIN_STEPS = 2_000
+_LS_MAX_STEPS = 300_000
+_LAG_ITERATIONS = 10_000
 
 
 def _ceil_bound(bound: float, costs_integral: bool) -> float:
@@ -55,6 +60,7 @@ def solve_cover_core(
     Returns ``(chosen columns, objective, bound, status)`` with status one of
     "optimal", "feasible", "heuristic", "infeasible".
     """
+    t_start = clock.elapsed
     n, m = mat.shape
     cost = np.asarray(cost, dtype=np.float64)
     ints = integral(cost)
@@ -70,9 +76,28 @@ def solve_cover_core(
         best_obj = float(cost[best].sum())
         log.append(f"greedy + prune: {best_obj:g} ({len(best)} sites)")
     clock.mark("greedy")
-    if use_lagrange and conflicts is None and n > 1 and best_obj > bound + 1e-9:
-        lag_deadline = time.perf_counter() + max(0.0, 0.2 * min(time_limit, clock.left))
-        lag_bound, lag_plan = lagrangian_cover(mat, cost, upper=best_obj if math.isfinite(best_obj) else float(cost.sum()), deadline=lag_deadline)
+    big = mat.nnz > _GUARD_NNZ
+
+    def budget_left() -> float:
+        return max(min(time_limit - (clock.elapsed - t_start), clock.left), 0.0)
+
+    if best is not None and conflicts is None and best_obj > bound + 1e-9:
+        # row-weighting local search: a step budget keeps it deterministic, the deadline keeps it in time
+        steps = int(min(_LS_MAX_STEPS, max(_LS_MIN_STEPS, mat.nnz))) if big else _LS_MIN_STEPS
+        ls = cover_local_search(mat, cost, best, seed=seed, max_steps=steps, deadline=time.perf_counter() + (0.65 if big else 0.25) * budget_left(), target=bound)
+        ls = prune_cover(mat, cost, ls)
+        ls_obj = float(cost[ls].sum())
+        clock.mark("local search")
+        log.append(f"local search ({steps} steps max): {ls_obj:g}")
+        if ls_obj < best_obj - 1e-9:
+            best, best_obj = ls, ls_obj
+    if use_lagrange and conflicts is None and n > 1 and best_obj > _ceil_bound(bound, ints) + 1e-9:
+        # Lagrangian bound (Beasley 1990); on set covering its best value approaches the LP bound
+        lag_bound, lag_plan = lagrangian_cover(
+            mat, cost, upper=best_obj if math.isfinite(best_obj) else float(cost.sum()),
+            iterations=_LAG_ITERATIONS, patience=300, f_min=1e-6, heuristic_every=200,
+            deadline=time.perf_counter() + 0.25 * budget_left(),
+        )
         clock.mark("lagrangian")
         if lag_plan is not None:
             lag_plan = prune_cover(mat, cost, lag_plan)
@@ -80,11 +105,11 @@ def solve_cover_core(
             if lag_obj < best_obj - 1e-9:
                 best, best_obj = lag_plan, lag_obj
         bound = max(bound, lag_bound)
-        log.append(f"lagrangian: bound {lag_bound:.4g}, plan {best_obj:g}")
+        log.append(f"lagrangian: bound {lag_bound:.6g}, best plan {best_obj:g}")
     bound = _ceil_bound(bound, ints)
     if best is not None and best_obj <= bound + 1e-9:
         return best, best_obj, best_obj, "optimal"
-    left = min(time_limit, clock.left)
+    left = min(time_limit - (clock.elapsed - t_start), clock.left)
     # the MIP: min c x, A x >= 1, x_i + x_j <= 1 for spacing conflicts
     A = mat.astype(np.float64)
     sense = [b"G"] * n
@@ -187,6 +212,7 @@ def cover_all(
     check_common(time_limit, rel_gap, threads, seed, solver)
     solver = str(solver).lower()
     clock = Clock(time_limit)
+    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
     n, m = reach.shape
     prep = prepare(reach)
     cost = prep.cost if use_cost else np.ones(m)

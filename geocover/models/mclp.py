@@ -360,6 +360,7 @@ def cover_most(
         if float(budget) < kept_cost - 1e-9:
             raise ParameterError(f"budget: {budget:g} is below the cost of the kept sites ({kept_cost:g}); raise it to at least {kept_cost:g}", param="budget")
     clock = Clock(time_limit)
+    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
     params: dict[str, Any] = {"sites": sites, "budget": budget, "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
     log: list[str] = []
 

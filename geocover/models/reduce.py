@@ -51,6 +51,8 @@ def as_pattern(matrix: sp.spmatrix) -> sp.csr_matrix:
     Every stored entry counts, explicit zeros included (a site on a demand
     point covers it at distance 0).
     """
+    if sp.isspmatrix_csr(matrix) and matrix.dtype == np.int8 and matrix.has_canonical_format and (matrix.nnz == 0 or matrix.data.min() == 1):
+        return matrix
     mat = sp.csr_matrix(matrix)
     if not mat.has_canonical_format:
         mat = mat.copy()
@@ -111,8 +113,10 @@ def merge_rows(mat: sp.csr_matrix, weight: np.ndarray) -> tuple[sp.csr_matrix, n
         with np.errstate(over="ignore"):
             k1[nz_rows] = np.add.reduceat(h1[mat.indices], starts)
             k2[nz_rows] = np.bitwise_xor.reduceat(h2[mat.indices], starts)
-    keys = np.stack([size.astype(np.uint64), k1, k2], axis=1)
-    _, first, group = np.unique(keys, axis=0, return_index=True, return_inverse=True)
+    # one 64-bit key per row (size, sum-hash and xor-hash mixed); the exact check below catches collisions
+    with np.errstate(over="ignore"):
+        keys = k1 ^ (k2 * np.uint64(0x9E3779B97F4A7C15)) ^ (size.astype(np.uint64) * np.uint64(0xC2B2AE3D27D4EB4F))
+    _, first, group = np.unique(keys, return_index=True, return_inverse=True)
     group = group.ravel()
     # renumber groups by first occurrence so the result does not depend on hash order
     order = np.argsort(first, kind="stable")
@@ -122,8 +126,9 @@ def merge_rows(mat: sp.csr_matrix, weight: np.ndarray) -> tuple[sp.csr_matrix, n
     rep = first[order]
     # verify exactness: every row must equal its representative (guards against hash collisions)
     expanded_rep = rep[group]
-    if mat.nnz and not np.array_equal(size, size[expanded_rep]):
-        raise AssertionError("row merge: hash collision on sizes")  # pragma: no cover
+    if mat.nnz and not np.array_equal(size, size[expanded_rep]):  # pragma: no cover - 64-bit collision
+        logger.warning("row merge: hash collision detected, falling back to exact grouping")
+        return _merge_rows_exact(mat, weight)
     if mat.nnz:
         idx_rep = _take_rows(mat, expanded_rep).indices
         if not np.array_equal(idx_rep, mat.indices):  # pragma: no cover - 128-bit collision
@@ -184,16 +189,24 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
     score = cnt[indices] * (m + 1) + indices
     rare_score = np.minimum.reduceat(score, indptr[:-1][nzrows])
     rare = rare_score % (m + 1)
-    # rows b grouped by their rarest element
-    order = np.lexsort((nzrows, rare))
+    # rows b grouped by their rarest element, smallest first: a can only contain b if size[b] < size[a]
+    # (or == for identical rows, which callers merge beforehand)
+    smax = int(size.max()) + 1
+    order = np.lexsort((nzrows, size[nzrows], rare))
     b_sorted = nzrows[order]
+    b_key = rare[order] * smax + size[b_sorted]
     b_count = np.bincount(rare, minlength=m)
     b_start = np.concatenate([[0], np.cumsum(b_count)[:-1]])
     mask1 = _bitmask(mat, 1)
     mask2 = _bitmask(mat, 2)
+    nmask1 = ~mask1
+    nmask2 = ~mask2
+    b_sorted32 = b_sorted.astype(np.int32)
     keys = _row_of_nonzero(indptr) * m + indices  # sorted (canonical CSR)
     row_nz = _row_of_nonzero(indptr)
-    per_nz = b_count[indices]  # candidate b's for each nonzero (a, e)
+    row_nz32 = row_nz.astype(np.int32)
+    # candidate b's for each nonzero (a, e): rarest element e and size <= size[a]
+    per_nz = np.searchsorted(b_key, indices * smax + size[row_nz], side="right") - b_start[indices]
     sup_out: list[np.ndarray] = []
     sub_out: list[np.ndarray] = []
     # chunk over nonzeros so that each chunk makes at most ~chunk candidate pairs
@@ -210,15 +223,15 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
         lo = hi
         if tot == 0:
             continue
-        a = np.repeat(row_nz[sl], reps)
-        first = np.repeat(b_start[indices[sl]], reps)
-        offs = np.arange(tot, dtype=np.int64) - np.repeat(np.cumsum(reps) - reps, reps)
-        b = b_sorted[first + offs]
-        keep = (a != b) & (size[b] <= size[a])
-        keep &= (mask1[b] & ~mask1[a]) == 0
-        keep &= (mask2[b] & ~mask2[a]) == 0
+        a = np.repeat(row_nz32[sl], reps)
+        shift = np.repeat(b_start[indices[sl]] - (np.cumsum(reps) - reps), reps)
+        b = b_sorted32[shift + np.arange(tot, dtype=np.int64)]
+        keep = (mask1[b] & nmask1[a]) == 0
         a = a[keep]
         b = b[keep]
+        keep = ((mask2[b] & nmask2[a]) == 0) & (a != b)
+        a = a[keep].astype(np.int64)
+        b = b[keep].astype(np.int64)
         if len(a) == 0:
             continue
         # full check: every element of b is in a
@@ -374,9 +387,9 @@ def reduce_lscp(
         bad = bool((np.diff(sub.indptr) == 0).any())
         return sub, bad
 
-    cur, bad = apply_columns(cur)
-    if bad:
-        infeasible = True
+    if is_open.any() or not alive_col.all():
+        cur, bad = apply_columns(cur)
+        infeasible |= bad
     cur, _, _ = merge_rows(cur, np.ones(cur.shape[0]))
     stats.append({"step": "merge identical rows", "rows": cur.shape[0], "columns": int(alive_col.sum()), "nnz": int(cur.nnz), "seconds": time.perf_counter() - t0})
     rounds = 0
