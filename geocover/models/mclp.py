@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import logging
 import math
+import time
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -20,7 +21,8 @@ import scipy.sparse as sp
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
 from ._common import Clock, check_common, check_reach, conflict_matrix, kept_conflict, make_plan, prepare, violates_spacing
-from .greedy import covered_weight, greedy_most, swap_most
+from .greedy import covered_weight, greedy_most, iterated_swap, swap_most
+from .lagrange import lagrangian_most
 from .reduce import components, dominated_columns, merge_rows
 from .solver import solve_mip
 
@@ -29,6 +31,7 @@ logger = logging.getLogger(__name__)
 __all__ = ["cover_most", "MostCore", "build_most_core", "solve_most_core", "most_curve", "combine_curves"]
 
 _GUARD_NNZ = 20_000
+_ILS_ITERATIONS = 40
 
 
 @dataclass
@@ -175,11 +178,24 @@ def solve_most_core(
         best = swap_most(mat, w, best, resource=res, budget=None if count_model else float(cap), conflicts=conflicts, deadline=clock.t0 + clock.elapsed + 0.2 * max(min(time_limit, clock.left), 0.0))
         best_val = covered_weight(mat, w, best)
         log.append(f"swap: {best_val:.6g}")
+        if count_model and conflicts is None and m > cap > 0:
+            ils = iterated_swap(mat, w, best, sites=int(cap), resource=res, seed=seed, iterations=_ILS_ITERATIONS, deadline=time.perf_counter() + 0.1 * max(min(time_limit, clock.left), 0.0))
+            ils_val = covered_weight(mat, w, ils)
+            if ils_val > best_val:
+                best, best_val = ils, ils_val
+            log.append(f"iterated swap ({_ILS_ITERATIONS} kicks max): {best_val:.6g}")
     clock.mark("greedy")
     ub = _upper_bound(mat, w, res, cap, count_model) if conflicts is None else total
     tol = 1e-9 * max(total, 1.0)
     if best_val >= ub - tol:
         return best, best_val, best_val, "optimal"
+    if count_model and conflicts is None and n > 1:
+        lag = lagrangian_most(mat, w, res > 0, int(cap), lower=best_val, iterations=1500, deadline=time.perf_counter() + 0.05 * max(min(time_limit, clock.left), 0.0))
+        clock.mark("lagrangian")
+        log.append(f"lagrangian bound: {lag:.6g}")
+        ub = min(ub, max(lag, best_val))
+        if best_val >= ub - tol or (ub - best_val) / max(best_val, 1e-9) <= rel_gap:
+            return best, best_val, ub if ub - best_val > tol else best_val, "optimal"
     left = min(time_limit, clock.left)
     # MIP: max w y; A x - y >= 0; res x <= cap; x_i + x_j <= 1 for conflicts; x binary, 0 <= y <= 1
     A = sp.hstack([mat.astype(np.float64), -sp.identity(n, format="csr")], format="csr")

@@ -162,7 +162,7 @@ def _bitmask(mat: sp.csr_matrix, salt: int) -> np.ndarray:
     return out
 
 
-def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndarray, np.ndarray]:
+def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000, max_candidates: int | None = None) -> tuple[np.ndarray, np.ndarray] | None:
     """All pairs ``(a, b)``, ``a != b``, of non-empty rows with ``set(b) <= set(a)``.
 
     Candidate pairs come from the rarest element of ``b`` (``a`` must
@@ -173,7 +173,9 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
     Returns
     -------
     sup, sub : int arrays
-        ``set(sub[t]) <= set(sup[t])`` for every t.
+        ``set(sub[t]) <= set(sup[t])`` for every t; None when more than
+        ``max_candidates`` candidate pairs would have to be checked (the
+        caller then skips the rule, which is always safe).
     """
     mat = sp.csr_matrix(mat)
     n, m = mat.shape
@@ -207,6 +209,8 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
     row_nz32 = row_nz.astype(np.int32)
     # candidate b's for each nonzero (a, e): rarest element e and size <= size[a]
     per_nz = np.searchsorted(b_key, indices * smax + size[row_nz], side="right") - b_start[indices]
+    if max_candidates is not None and int(per_nz.sum()) > max_candidates:
+        return None
     sup_out: list[np.ndarray] = []
     sub_out: list[np.ndarray] = []
     # chunk over nonzeros so that each chunk makes at most ~chunk candidate pairs
@@ -253,14 +257,21 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
     return np.concatenate(sup_out), np.concatenate(sub_out)
 
 
-def dominated_rows(mat: sp.csr_matrix) -> np.ndarray:
+MAX_CANDIDATES = 400_000_000  #: about 10 s of subset checks; beyond that a dominance rule is skipped
+
+
+def dominated_rows(mat: sp.csr_matrix) -> np.ndarray | None:
     """Boolean mask of rows that are strict supersets of another row (LSCP only).
 
     Rows must already be merged (no two identical), so every superset is strict.
     Covering the smaller row covers the larger one, so the larger constraint
     is redundant.
     """
-    sup, sub = subset_pairs(mat)
+    found = subset_pairs(mat, max_candidates=MAX_CANDIDATES)
+    if found is None:
+        logger.info("row dominance skipped: too many candidate pairs")
+        return None
+    sup, sub = found
     out = np.zeros(mat.shape[0], dtype=bool)
     # identical rows (if the caller did not merge) keep the lower index
     size = np.diff(mat.indptr)
@@ -295,9 +306,14 @@ def dominated_columns(
     csc_as_rows = sp.csr_matrix(mat.T)
     csc_as_rows.sort_indices()
     resource = np.asarray(resource, dtype=np.float64)
-    sup, sub = subset_pairs(csc_as_rows)
+    found = subset_pairs(csc_as_rows, max_candidates=MAX_CANDIDATES)
     size = np.diff(csc_as_rows.indptr)
     out = np.zeros(m, dtype=bool)
+    if found is None:
+        logger.info("column dominance skipped: too many candidate pairs")
+        sup = sub = np.zeros(0, dtype=np.int64)
+    else:
+        sup, sub = found
     if len(sup):
         strict_set = size[sub] < size[sup]
         ok = (resource[sup] < resource[sub]) | ((resource[sup] == resource[sub]) & (strict_set | (sup < sub)))
@@ -425,6 +441,9 @@ def reduce_lscp(
         before = cur.shape[0]
         cur, _, _ = merge_rows(cur, np.ones(before))
         drop = dominated_rows(cur)
+        if drop is None:
+            stats.append({"step": f"dominated rows (round {rounds})", "skipped": "too many candidate pairs"})
+            break
         if drop.any():
             cur = cur[~drop]
         if cur.shape[0] != before:

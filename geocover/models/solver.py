@@ -154,7 +154,9 @@ def _solve_inprocess(solver: str, maximize: bool, c: np.ndarray, A: sp.csr_matri
         if solver == "cbc":
             from mip.cbc import cbclib, ffi
 
-            sv = np.ascontiguousarray(np.round(start[idx]), dtype=np.float64)
+            # every column's value, continuous ones too, so CBC need not solve an LP to complete the start
+            idx = np.arange(len(c))
+            sv = np.ascontiguousarray(np.where(integer, np.round(start), start), dtype=np.float64)
             ii = np.ascontiguousarray(idx, dtype=np.intc)
             cbclib.Cbc_setMIPStartI(model.solver._model, len(ii), ffi.cast("int *", ffi.from_buffer(ii)), ffi.cast("double *", ffi.from_buffer(sv)))
         else:
@@ -227,7 +229,7 @@ def solve_mip(
     ``sense`` holds one of ``b"G"``, ``b"L"``, ``b"E"`` per row.  The whole
     call (building included) is held to ``time_limit`` seconds: the solver
     gets what is left after building, and with ``guard`` the solve runs in a
-    forked child that is asked to stop at 80 % of the limit and killed at
+    forked child that is asked to stop at 70 % of the limit and killed at
     the limit.
     """
     solver = _check_solver(solver)
@@ -248,7 +250,7 @@ def solve_mip(
     use_fork = guard and "fork" in mp_.get_all_start_methods() and os.name == "posix"
     if use_fork:
         # CBC overruns its own limit (seen: +70 %): ask it to stop well before we kill it
-        inner = max(0.05, 0.8 * time_limit - est_build - 0.2)
+        inner = max(0.05, 0.7 * time_limit - est_build - 0.2)
     else:
         inner = max(0.05, min(time_limit * 0.97 - est_build, time_limit - est_build - 0.1))
     args = (solver, maximize, np.asarray(c, dtype=np.float64), A, sense, rhs, lb, ub, integer, start, inner, rel_gap, threads, seed)
