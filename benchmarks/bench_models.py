@@ -76,12 +76,18 @@ def candidates(kind: str, k: int, seed: int = 1) -> np.ndarray:
     return np.clip(centres[pick] + rng.normal(0, 6000, (k, 2)), 0, 100_000.0)
 
 
-def coverage(demand_xy: np.ndarray, site_xy: np.ndarray, radius: float) -> sp.csr_matrix:
+def coverage(demand_xy: np.ndarray, site_xy: np.ndarray, radius: float, chunk: int = 250) -> sp.csr_matrix:
+    """Demand x sites 0/1 matrix of pairs within ``radius`` (cKDTree, sites in chunks to bound memory)."""
     tree = cKDTree(demand_xy)
-    lists = tree.query_ball_point(site_xy, radius, return_sorted=True)
-    lens = np.fromiter((len(x) for x in lists), dtype=np.int64, count=len(lists))
-    rows = np.concatenate([np.asarray(x, dtype=np.int64) for x in lists]) if lens.sum() else np.zeros(0, dtype=np.int64)
-    cols = np.repeat(np.arange(len(site_xy)), lens)
+    rows_l, cols_l = [], []
+    for s0 in range(0, len(site_xy), chunk):
+        lists = tree.query_ball_point(site_xy[s0 : s0 + chunk], radius, return_sorted=True)
+        lens = np.fromiter((len(x) for x in lists), dtype=np.int64, count=len(lists))
+        if lens.sum():
+            rows_l.append(np.concatenate([np.asarray(x, dtype=np.int32) for x in lists if len(x)]))
+            cols_l.append(np.repeat(np.arange(s0, s0 + len(lists), dtype=np.int32), lens))
+    rows = np.concatenate(rows_l) if rows_l else np.zeros(0, dtype=np.int32)
+    cols = np.concatenate(cols_l) if cols_l else np.zeros(0, dtype=np.int32)
     return sp.csr_matrix((np.ones(len(rows), dtype=np.float64), (rows, cols)), shape=(len(demand_xy), len(site_xy)))
 
 

@@ -32,6 +32,9 @@ __all__ = ["cover_most", "MostCore", "build_most_core", "solve_most_core", "most
 
 _GUARD_NNZ = 20_000
 _ILS_ITERATIONS = 40
+# component DP: only when every component is small (its MIPs take milliseconds) and the curves are short
+_DP_MAX_SOLVES = 2_000
+_DP_SMALL_NNZ = 5_000
 
 
 @dataclass
@@ -400,7 +403,15 @@ def cover_most(
     mat, w = core.matrix, core.weight
     ncomp, row_lab, col_lab = components(mat, core.conflicts) if mat.shape[0] else (0, np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64))
     params["components"] = int(ncomp)
+    use_dp = False
     if reduce and count_model and ncomp > 1:
+        # the exact DP needs each component's curve up to p; worth it when that is a modest number of small solves
+        paid_per = np.bincount(col_lab, weights=core.paid.astype(float), minlength=ncomp)
+        nnz_per = np.bincount(row_lab, weights=np.diff(mat.indptr), minlength=ncomp)
+        solves = float(np.minimum(paid_per, p).sum() + ncomp)
+        use_dp = bool((nnz_per <= _DP_SMALL_NNZ).all()) and solves <= _DP_MAX_SOLVES
+        params["component_dp"] = bool(use_dp)
+    if use_dp:
         chosen_local, val, bnd, status = _solve_by_components(mat, w, core.paid, core.conflicts, p, ncomp, row_lab, col_lab, kw)
     else:
         chosen_local, val, bnd, status = solve_most_core(mat, w, res, cap, core.conflicts, count_model=count_model, time_limit=clock.left, **kw)

@@ -282,7 +282,7 @@ def solve_mip(
         proc.join(5)
         secs = time.perf_counter() - t0
         why = "killed at the deadline" if secs >= time_limit else f"child exited with code {proc.exitcode}"
-        logger.warning("MIP %s after %.1f s (limit %.1f s)", why, secs, time_limit)
+        logger.info("MIP %s after %.1f s (limit %.1f s)", why, secs, time_limit)
         return MipResult(None, float("nan"), float("nan"), "killed", secs, 0.0, [f"{solver}: {why} after {secs:.1f} s (limit {time_limit:.1f} s); using the heuristic plan"])
     proc.join(5)
     if proc.is_alive():  # pragma: no cover
