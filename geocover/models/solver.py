@@ -31,6 +31,7 @@ logger = logging.getLogger(__name__)
 __all__ = ["MipResult", "solve_mip", "SOLVERS"]
 
 SOLVERS = ("cbc", "highs")
+_BULK_LOAD = True  #: one Cbc_loadProblem call; False: one Cbc_addCol / Cbc_addRow call per column / row
 
 
 @dataclass
@@ -117,6 +118,56 @@ def _build_cbc(model: Any, c: np.ndarray, A: sp.csr_matrix, sense: np.ndarray, r
     model._geocover_buffers = (ind, val)
 
 
+_LOAD_CDEF = """void Cbc_loadProblem(Cbc_Model *model, const int numcols, const int numrows,
+    const int *start, const int *index, const double *value,
+    const double *collb, const double *colub, const double *obj,
+    const double *rowlb, const double *rowub);"""
+
+
+@functools.lru_cache(maxsize=1)
+def _cbc_load_problem() -> Any:
+    """``Cbc_loadProblem`` from the CBC library python-mip loaded (not in mip's own declarations)."""
+    from mip.cbc import cbclib, ffi
+
+    try:
+        ffi.cdef(_LOAD_CDEF)
+        return cbclib.Cbc_loadProblem
+    except Exception:  # pragma: no cover - a CBC build without it: fall back to row-by-row
+        return None
+
+
+def _build_cbc_bulk(model: Any, c: np.ndarray, A: sp.csr_matrix, sense: np.ndarray, rhs: np.ndarray, lb: np.ndarray, ub: np.ndarray, integer: np.ndarray) -> bool:
+    """Hand CBC the whole matrix in one ``Cbc_loadProblem`` call (column-major arrays)."""
+    load = _cbc_load_problem()
+    if load is None:
+        return False
+    from mip.cbc import cbclib, ffi
+
+    mdl = model.solver._model
+    n_var = len(c)
+    csc = sp.csc_matrix(A)
+    csc.sort_indices()
+    start = np.ascontiguousarray(csc.indptr, dtype=np.intc)
+    index = np.ascontiguousarray(csc.indices, dtype=np.intc)
+    value = np.ascontiguousarray(csc.data, dtype=np.float64)
+    if len(index) == 0:
+        index = np.zeros(1, dtype=np.intc)
+        value = np.zeros(1, dtype=np.float64)
+    s = np.array([x if isinstance(x, bytes) else str(x).encode() for x in sense.tolist()], dtype="S1")
+    rlo = np.where((s == b"G") | (s == b"E"), rhs, -np.inf).astype(np.float64)
+    rhi = np.where((s == b"L") | (s == b"E"), rhs, np.inf).astype(np.float64)
+    arrays = [start, index, value, np.ascontiguousarray(lb, dtype=np.float64), np.ascontiguousarray(ub, dtype=np.float64), np.ascontiguousarray(c, dtype=np.float64), np.ascontiguousarray(rlo), np.ascontiguousarray(rhi)]
+    ptrs = [ffi.cast("int *", ffi.from_buffer(a)) for a in arrays[:2]] + [ffi.cast("double *", ffi.from_buffer(a)) for a in arrays[2:]]
+    load(mdl, n_var, A.shape[0], *ptrs)
+    for j in np.flatnonzero(integer).tolist():
+        cbclib.Cbc_setInteger(mdl, j)
+    cbclib.Cbc_setObjSense(mdl, -1.0 if model.sense == "MAX" else 1.0)
+    model.vars.update_vars(model.solver.num_cols())
+    model.constrs.update_constrs(model.solver.num_rows())
+    model._geocover_buffers = arrays
+    return True
+
+
 def _build_generic(model: Any, c: np.ndarray, A: sp.csr_matrix, sense: np.ndarray, rhs: np.ndarray, lb: np.ndarray, ub: np.ndarray, integer: np.ndarray) -> None:
     """Build through python-mip's ordinary API (used for HiGHS)."""
     import mip
@@ -140,7 +191,8 @@ def _solve_inprocess(solver: str, maximize: bool, c: np.ndarray, A: sp.csr_matri
     t0 = time.perf_counter()
     model = _new_model(solver, maximize)
     if solver == "cbc":
-        _build_cbc(model, c, A, sense, rhs, lb, ub, integer)
+        if not (_BULK_LOAD and _build_cbc_bulk(model, c, A, sense, rhs, lb, ub, integer)):
+            _build_cbc(model, c, A, sense, rhs, lb, ub, integer)
     else:
         _build_generic(model, c, A, sense, rhs, lb, ub, integer)
     build = time.perf_counter() - t0
