@@ -183,3 +183,11 @@ def test_docstring_examples_run(module: str) -> None:
     mod = importlib.import_module(f"geocover.models.{module}")
     result = doctest.testmod(mod, optionflags=doctest.ELLIPSIS)
     assert result.failed == 0
+
+
+def test_docs_models_md_examples_run() -> None:
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[1] / "docs" / "models.md"
+    result = doctest.testfile(str(path), module_relative=False, optionflags=doctest.ELLIPSIS)
+    assert result.attempted >= 4 and result.failed == 0

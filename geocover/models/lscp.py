@@ -81,6 +81,13 @@ def solve_cover_core(
     def budget_left() -> float:
         return max(min(time_limit - (clock.elapsed - t_start), clock.left), 0.0)
 
+    if not big:
+        # small: CBC proves these in milliseconds; the heuristics below only run if it does not
+        got = _mip_cover(mat, cost, conflicts, best, best_obj, bound, ints, time_limit=0.5 * budget_left(), rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, log=log, clock=clock)
+        if got[3] in ("optimal", "infeasible"):
+            return got
+        best, best_obj, bound = got[0], got[1], max(bound, got[2]) if math.isfinite(got[2]) else bound
+
     if best is not None and conflicts is None and best_obj > bound + 1e-9:
         # row-weighting local search: a step budget keeps it deterministic, the deadline keeps it in time
         steps = int(min(_LS_MAX_STEPS, max(_LS_MIN_STEPS, mat.nnz))) if big else _LS_MIN_STEPS
@@ -109,7 +116,29 @@ def solve_cover_core(
     bound = _ceil_bound(bound, ints)
     if best is not None and best_obj <= bound + 1e-9:
         return best, best_obj, best_obj, "optimal"
-    left = min(time_limit - (clock.elapsed - t_start), clock.left)
+    return _mip_cover(mat, cost, conflicts, best, best_obj, bound, ints, time_limit=budget_left(), rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, log=log, clock=clock)
+
+
+def _mip_cover(
+    mat: sp.csr_matrix,
+    cost: np.ndarray,
+    conflicts: sp.csr_matrix | None,
+    best: np.ndarray | None,
+    best_obj: float,
+    bound: float,
+    ints: bool,
+    *,
+    time_limit: float,
+    rel_gap: float,
+    threads: int,
+    seed: int,
+    solver: str,
+    log: list[str],
+    clock: Clock,
+) -> tuple[np.ndarray | None, float, float, str]:
+    """The set-covering MIP warm-started with ``best``; returns the better of the two."""
+    n, m = mat.shape
+    left = time_limit
     # the MIP: min c x, A x >= 1, x_i + x_j <= 1 for spacing conflicts
     A = mat.astype(np.float64)
     sense = [b"G"] * n
@@ -275,10 +304,12 @@ def cover_all(
             remaining -= sizes[c]
             sel, obj, bnd, st = solve_cover_core(sub, core.cost[cols], conf if conf is not None and conf.nnz else None, clock=clock, time_limit=share, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, log=log)
             statuses.append(st)
-            if st == "infeasible" or sel is None:
+            if sel is None:
                 if st == "infeasible":
+                    log.append("the spacing rule leaves no way to cover every coverable demand row")
                     return plan(np.concatenate(chosen), math.nan, math.nan, SolveStatus.INFEASIBLE)
-                return plan(np.concatenate(chosen), math.nan, math.nan, SolveStatus.INFEASIBLE if st == "infeasible" else SolveStatus.HEURISTIC)
+                log.append("no cover satisfying the spacing rule was found within the time limit")
+                return plan(np.concatenate(chosen), math.nan, math.nan, SolveStatus.HEURISTIC)
             chosen.append(core.columns[cols[sel]])
             total_obj += obj
             total_bound += bnd
