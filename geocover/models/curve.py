@@ -126,7 +126,7 @@ def tradeoff(
         status = SolveStatus.INFEASIBLE if kept_conflict(reach) else SolveStatus.EMPTY
         z = np.zeros(P)
         return Tradeoff(np.arange(1, P + 1), z, z, z, z, (status,) * P, tuple(np.flatnonzero(kept) for _ in range(P)), coverable, reach.uncoverable_weight, None, {lv: None for lv in LEVELS}, {lv: False for lv in LEVELS}, clock.elapsed)
-    core = build_most_core(reach, resource="count", reduce=reduce)
+    core = build_most_core(reach, resource="count", reduce=reduce, deadline=clock.t0 + time_limit / 3.0)
     mat, w = core.matrix, core.weight
     if mat.shape[0]:
         ncomp, row_lab, col_lab = components(mat, core.conflicts) if reduce else (1, np.zeros(mat.shape[0], dtype=np.int64), np.zeros(mat.shape[1], dtype=np.int64))

@@ -259,7 +259,8 @@ def cover_all(
         log.append("no demand can be reached by any site")
         c0 = float(cost[kept].sum())
         return plan(kept, c0, c0, SolveStatus.EMPTY)
-    core = reduce_lscp(prep.pattern, cost, fixed_open=kept, close_pairs=prep.pairs, rules=reduce)
+    # reductions may use up to a third of the time limit
+    core = reduce_lscp(prep.pattern, cost, fixed_open=kept, close_pairs=prep.pairs, rules=reduce, deadline=clock.t0 + clock.limit / 3.0)
     clock.mark("reduce")
     params["reduction"] = core.stats
     for s in core.stats:

@@ -53,7 +53,7 @@ class MostCore:
     stats: list[dict[str, Any]] = field(default_factory=list)
 
 
-def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominance: bool = True, optional_free: bool = True, unit_cost: bool = False) -> MostCore:
+def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominance: bool = True, optional_free: bool = True, unit_cost: bool = False, deadline: float | None = None) -> MostCore:
     """Take kept sites out, merge identical rows, drop dominated columns.
 
     ``resource`` is "count" (dominance needs a column that counts no more
@@ -95,7 +95,7 @@ def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominanc
         res = paid.astype(np.float64) if resource == "count" else cost
         # drop dead columns before the dominance test so they cannot dominate
         live_sub = sub[:, np.flatnonzero(alive)]
-        dead_local = dominated_columns(live_sub, res[alive], can_dominate=~in_pair[alive])
+        dead_local = dominated_columns(live_sub, res[alive], can_dominate=~in_pair[alive], deadline=deadline)
         alive_idx = np.flatnonzero(alive)
         alive[alive_idx[dead_local]] = False
         stats.append({"step": "dominated columns", "columns": int(alive.sum())})
@@ -395,7 +395,7 @@ def cover_most(
         log.append("no demand can be reached by any site")
         return plan(kept_idx, 0.0, 0.0, SolveStatus.EMPTY)
     count_model = sites is not None
-    core = build_most_core(reach, resource="count" if count_model else "cost", reduce=reduce)
+    core = build_most_core(reach, resource="count" if count_model else "cost", reduce=reduce, deadline=clock.t0 + clock.limit / 3.0)
     clock.mark("reduce")
     params["reduction"] = core.stats
     res = core.paid.astype(np.float64) if count_model else core.cost

@@ -162,7 +162,7 @@ def _bitmask(mat: sp.csr_matrix, salt: int) -> np.ndarray:
     return out
 
 
-def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000, max_candidates: int | None = None) -> tuple[np.ndarray, np.ndarray] | None:
+def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000, max_candidates: int | None = None, deadline: float | None = None) -> tuple[np.ndarray, np.ndarray] | None:
     """All pairs ``(a, b)``, ``a != b``, of non-empty rows with ``set(b) <= set(a)``.
 
     Candidate pairs come from the rarest element of ``b`` (``a`` must
@@ -175,7 +175,8 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000, max_candidates: 
     sup, sub : int arrays
         ``set(sub[t]) <= set(sup[t])`` for every t; None when more than
         ``max_candidates`` candidate pairs would have to be checked (the
-        caller then skips the rule, which is always safe).
+        caller then skips the rule, which is always safe), or when the
+        ``deadline`` (a ``time.perf_counter()`` value) passes.
     """
     mat = sp.csr_matrix(mat)
     n, m = mat.shape
@@ -218,6 +219,8 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000, max_candidates: 
     lo = 0
     total_nz = len(indices)
     while lo < total_nz:
+        if deadline is not None and time.perf_counter() > deadline:
+            return None
         base = csum[lo - 1] if lo else 0
         hi = int(np.searchsorted(csum, base + chunk, side="right"))
         hi = max(hi, lo + 1)
@@ -238,15 +241,30 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000, max_candidates: 
         b = b[keep].astype(np.int64)
         if len(a) == 0:
             continue
-        # full check: every element of b is in a
+        # quick check on up to 8 evenly spaced elements of b, then the full check on the survivors
+        nb = size[b]
+        samp = np.minimum(nb, 8)
+        tot1 = int(samp.sum())
+        pid1 = np.repeat(np.arange(len(a), dtype=np.int64), samp)
+        k1 = np.arange(tot1, dtype=np.int64) - np.repeat(np.cumsum(samp) - samp, samp)
+        pos_in_b = (k1 * np.repeat(nb, samp)) // np.repeat(samp, samp)
+        elem = indices[np.repeat(indptr[b], samp) + pos_in_b]
+        probe = a[pid1] * m + elem
+        pos = np.minimum(np.searchsorted(keys, probe), len(keys) - 1)
+        ok1 = np.bincount(pid1[keys[pos] != probe], minlength=len(a)) == 0
+        a = a[ok1]
+        b = b[ok1]
+        if len(a) == 0:
+            continue
+        if deadline is not None and time.perf_counter() > deadline:
+            return None
         nb = size[b]
         tot2 = int(nb.sum())
         pair_id = np.repeat(np.arange(len(a), dtype=np.int64), nb)
         offs2 = np.arange(tot2, dtype=np.int64) - np.repeat(np.cumsum(nb) - nb, nb)
         elem = indices[np.repeat(indptr[b], nb) + offs2]
         probe = a[pair_id] * m + elem
-        pos = np.searchsorted(keys, probe)
-        pos = np.minimum(pos, len(keys) - 1)
+        pos = np.minimum(np.searchsorted(keys, probe), len(keys) - 1)
         hit = keys[pos] == probe
         miss = np.bincount(pair_id[~hit], minlength=len(a))
         ok = miss == 0
@@ -258,16 +276,17 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000, max_candidates: 
 
 
 MAX_CANDIDATES = 400_000_000  #: about 10 s of subset checks; beyond that a dominance rule is skipped
+_CANDIDATES_PER_SECOND = 2.0e7  #: conservative rate of the vectorised subset check (measured about 4e7/s)
 
 
-def dominated_rows(mat: sp.csr_matrix) -> np.ndarray | None:
+def dominated_rows(mat: sp.csr_matrix, *, max_candidates: int = MAX_CANDIDATES, deadline: float | None = None) -> np.ndarray | None:
     """Boolean mask of rows that are strict supersets of another row (LSCP only).
 
     Rows must already be merged (no two identical), so every superset is strict.
     Covering the smaller row covers the larger one, so the larger constraint
     is redundant.
     """
-    found = subset_pairs(mat, max_candidates=MAX_CANDIDATES)
+    found = subset_pairs(mat, max_candidates=max_candidates, deadline=deadline)
     if found is None:
         logger.info("row dominance skipped: too many candidate pairs")
         return None
@@ -288,6 +307,8 @@ def dominated_columns(
     *,
     can_dominate: np.ndarray | None = None,
     can_drop: np.ndarray | None = None,
+    max_candidates: int = 0,
+    deadline: float | None = None,
 ) -> np.ndarray:
     """Boolean mask of columns dominated by another column.
 
@@ -306,7 +327,7 @@ def dominated_columns(
     csc_as_rows = sp.csr_matrix(mat.T)
     csc_as_rows.sort_indices()
     resource = np.asarray(resource, dtype=np.float64)
-    found = subset_pairs(csc_as_rows, max_candidates=MAX_CANDIDATES)
+    found = subset_pairs(csc_as_rows, max_candidates=max_candidates or MAX_CANDIDATES, deadline=deadline)
     size = np.diff(csc_as_rows.indptr)
     out = np.zeros(m, dtype=bool)
     if found is None:
@@ -350,6 +371,7 @@ def reduce_lscp(
     close_pairs: np.ndarray | None = None,
     rules: bool = True,
     max_rounds: int = 50,
+    deadline: float | None = None,
 ) -> LscpCore:
     """Reduce an LSCP instance exactly.
 
@@ -367,7 +389,18 @@ def reduce_lscp(
         False: only merge identical rows and take the fixed columns out (the
         "bare" model).  True: also row and column dominance and essential
         sites, until nothing changes.
+    deadline : float, optional
+        ``time.perf_counter()`` value after which no further round starts;
+        the dominance checks are also sized to the time left (a skipped
+        rule only leaves the instance larger, never wrong).
     """
+
+    def budget() -> int:
+        if deadline is None:
+            return MAX_CANDIDATES
+        left = deadline - time.perf_counter()
+        return int(max(0.0, min(float(MAX_CANDIDATES), _CANDIDATES_PER_SECOND * left)))
+
     t0 = time.perf_counter()
     n, m = mat.shape
     cost = np.asarray(cost, dtype=np.float64)
@@ -410,11 +443,14 @@ def reduce_lscp(
     stats.append({"step": "merge identical rows", "rows": cur.shape[0], "columns": int(alive_col.sum()), "nnz": int(cur.nnz), "seconds": time.perf_counter() - t0})
     rounds = 0
     while rules and not infeasible and rounds < max_rounds and cur.shape[0]:
+        if deadline is not None and time.perf_counter() > deadline:
+            stats.append({"step": "stopped", "reason": "reduction time budget used"})
+            break
         rounds += 1
         changed = False
         # dominated columns (resource = cost); columns in a spacing pair never dominate
         t = time.perf_counter()
-        dead = dominated_columns(cur, cost, can_dominate=~in_pair, can_drop=alive_col)
+        dead = dominated_columns(cur, cost, can_dominate=~in_pair, can_drop=alive_col, max_candidates=max(budget(), 1), deadline=deadline)
         dead &= alive_col
         if dead.any():
             alive_col[dead] = False
@@ -440,7 +476,7 @@ def reduce_lscp(
         t = time.perf_counter()
         before = cur.shape[0]
         cur, _, _ = merge_rows(cur, np.ones(before))
-        drop = dominated_rows(cur)
+        drop = dominated_rows(cur, max_candidates=budget(), deadline=deadline)
         if drop is None:
             stats.append({"step": f"dominated rows (round {rounds})", "skipped": "too many candidate pairs"})
             break

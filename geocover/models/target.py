@@ -119,7 +119,7 @@ def cover_target(
         log.append("no demand can be reached by any site")
         c0 = float(cost_all[kept].sum())
         return plan(kept, c0, c0, SolveStatus.EMPTY)
-    core = build_most_core(reach, resource="cost", reduce=reduce, optional_free=False, unit_cost=not use_cost)
+    core = build_most_core(reach, resource="cost", reduce=reduce, optional_free=False, unit_cost=not use_cost, deadline=clock.t0 + clock.limit / 3.0)
     clock.mark("reduce")
     params["reduction"] = core.stats
     coverable_w = core.coverable_weight
