@@ -430,12 +430,12 @@ def cover_most(
     return plan(chosen, obj, bound, st)
 
 
-def _drop_idle(reach: Reach, chosen: np.ndarray, kept: np.ndarray) -> np.ndarray:
+def _drop_idle(reach: Reach, chosen: np.ndarray, kept: np.ndarray, pattern_csc: sp.csc_matrix | None = None) -> np.ndarray:
     """Remove non-kept sites that add no coverage (highest index first)."""
     chosen = np.asarray(chosen, dtype=np.int64)
     if len(chosen) == 0:
         return chosen
-    pat = reach.pattern.tocsc()
+    pat = reach.pattern.tocsc() if pattern_csc is None else pattern_csc
     cnt = reach.coverage_count(chosen)
     w = reach.weight
     keep = np.ones(len(chosen), dtype=bool)
@@ -482,7 +482,7 @@ def _solve_by_components(mat, w, paid, conflicts, p, ncomp, row_lab, col_lab, kw
         cols_list.append(cols)
         statuses.extend(st)
     val, alloc = combine_curves(curves, p)
-    ub, _ = combine_curves([np.maximum.accumulate(b) for b in bounds], p)
+    ub, _ = combine_curves([np.minimum.accumulate(b[::-1])[::-1] for b in bounds], p)  # f(q) <= bound(q') for q' >= q
     chosen = [cols_list[c][plans[c][q]] for c, q in enumerate(alloc)]
     chosen_all = np.concatenate(chosen) if chosen else np.zeros(0, dtype=np.int64)
     log.append(f"components: {len(curves)} solved apart, combined by dynamic programming")
