@@ -332,3 +332,15 @@ def test_time_limit_is_honoured_and_plan_never_worse_than_greedy() -> None:
     assert plan.objective <= len(g)
     assert plan.bound <= plan.objective
     assert plan.status in (SolveStatus.OPTIMAL, SolveStatus.FEASIBLE)
+
+
+def test_two_essential_sites_in_conflict_make_the_lscp_infeasible() -> None:
+    # rows 0 and 1 each have a single site, and the two sites are too close to both open
+    mat = sp.csr_matrix([[1, 0, 0], [0, 1, 0], [0, 1, 1]])
+    reach = Reach.from_sparse(mat, close_pairs=[[0, 1]])
+    assert ref_lscp(reach) is None  # scipy.optimize.milp (HiGHS) agrees there is no plan
+    plan = cover_all(reach)
+    assert plan.status == SolveStatus.INFEASIBLE
+    # MCLP is still fine: it picks the better of the two
+    most = cover_most(Reach.from_sparse(mat, weight=[1, 5, 1], close_pairs=[[0, 1]]), sites=2)
+    assert most.objective == pytest.approx(ref_mclp(Reach.from_sparse(mat, weight=[1, 5, 1], close_pairs=[[0, 1]]), p=2))

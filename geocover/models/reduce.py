@@ -413,15 +413,19 @@ def reduce_lscp(
     cur = as_pattern(mat)
     infeasible = False
 
-    def open_columns(cols: np.ndarray) -> None:
+    def open_columns(cols: np.ndarray) -> bool:
+        """Open ``cols`` and close their spacing partners; False if two open columns conflict."""
         is_open[cols] = True
         alive_col[cols] = False
+        if len(pairs) and (is_open[pairs[:, 0]] & is_open[pairs[:, 1]]).any():
+            return False
         if len(pairs):
             partner = np.concatenate([pairs[np.isin(pairs[:, 0], cols), 1], pairs[np.isin(pairs[:, 1], cols), 0]])
             alive_col[partner] = False
+        return True
 
     if fixed_open is not None and len(fixed_open):
-        open_columns(np.asarray(fixed_open, dtype=np.int64))
+        infeasible |= not open_columns(np.asarray(fixed_open, dtype=np.int64))
 
     def apply_columns(cur: sp.csr_matrix) -> tuple[sp.csr_matrix, bool]:
         """Drop rows covered by open columns and dead columns from the matrix."""
@@ -465,7 +469,8 @@ def reduce_lscp(
         single = np.diff(cur.indptr) == 1
         if single.any():
             ess = np.unique(cur.indices[cur.indptr[:-1][single]])
-            open_columns(ess)
+            # two essential sites that may not both open: some row cannot be covered
+            infeasible |= not open_columns(ess)
             changed = True
             cur, bad = apply_columns(cur)
             infeasible |= bad
