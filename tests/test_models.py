@@ -300,7 +300,11 @@ def test_deterministic_ties_broken_by_site_order() -> None:
     assert cover_most(r2, sites=3).sites.tolist() == cover_most(r2, sites=3).sites.tolist()
 
 
-def test_bulk_build_solves_a_model_given_as_arrays() -> None:
+@pytest.mark.parametrize("bulk", [True, False])
+def test_bulk_build_solves_a_model_given_as_arrays(bulk: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+    import geocover.models.solver as solver_mod
+
+    monkeypatch.setattr(solver_mod, "_BULK_LOAD", bulk)  # one Cbc_loadProblem call, or a call per row
     # min x0 + 2 x1 + 3 x2  s.t. x0 + x1 >= 1, x1 + x2 >= 1  -> x1 = 1, objective 2
     A = sp.csr_matrix([[1.0, 1.0, 0.0], [0.0, 1.0, 1.0]])
     for guard in (False, True):
@@ -308,6 +312,15 @@ def test_bulk_build_solves_a_model_given_as_arrays() -> None:
         assert res.status == "optimal"
         assert res.objective == pytest.approx(2.0)
         assert res.x.round().tolist() == [0.0, 1.0, 0.0]
+    # max 3 x0 + 2 x1 + y  s.t. x0 + x1 <= 1 (L), y - x1 = 0 (E), 0 <= y <= 1 continuous -> x0 = 1, objective 3
+    B = sp.csr_matrix([[1.0, 1.0, 0.0], [0.0, -1.0, 1.0]])
+    res = solve_mip(np.array([3.0, 2.0, 1.0]), B, np.array([b"L", b"E"]), np.array([1.0, 0.0]), integer=np.array([True, True, False]), maximize=True, time_limit=10, guard=False)
+    assert res.status == "optimal" and res.objective == pytest.approx(3.0)
+    # and a whole model through each path gives the published optimum
+    path = ORLIB / "scp41.txt"
+    if path.exists():
+        mat, cost = read_orlib(path)
+        assert cover_all(Reach.from_sparse(mat, cost=cost), reduce=False).objective == 429
 
 
 def test_time_limit_is_honoured_and_plan_never_worse_than_greedy() -> None:
@@ -319,3 +332,15 @@ def test_time_limit_is_honoured_and_plan_never_worse_than_greedy() -> None:
     assert plan.objective <= len(g)
     assert plan.bound <= plan.objective
     assert plan.status in (SolveStatus.OPTIMAL, SolveStatus.FEASIBLE)
+
+
+def test_two_essential_sites_in_conflict_make_the_lscp_infeasible() -> None:
+    # rows 0 and 1 each have a single site, and the two sites are too close to both open
+    mat = sp.csr_matrix([[1, 0, 0], [0, 1, 0], [0, 1, 1]])
+    reach = Reach.from_sparse(mat, close_pairs=[[0, 1]])
+    assert ref_lscp(reach) is None  # scipy.optimize.milp (HiGHS) agrees there is no plan
+    plan = cover_all(reach)
+    assert plan.status == SolveStatus.INFEASIBLE
+    # MCLP is still fine: it picks the better of the two
+    most = cover_most(Reach.from_sparse(mat, weight=[1, 5, 1], close_pairs=[[0, 1]]), sites=2)
+    assert most.objective == pytest.approx(ref_mclp(Reach.from_sparse(mat, weight=[1, 5, 1], close_pairs=[[0, 1]]), p=2))

@@ -183,3 +183,27 @@ def test_docstring_examples_run(module: str) -> None:
     mod = importlib.import_module(f"geocover.models.{module}")
     result = doctest.testmod(mod, optionflags=doctest.ELLIPSIS)
     assert result.failed == 0
+
+
+def test_docs_models_md_examples_run() -> None:
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[1] / "docs" / "models.md"
+    result = doctest.testfile(str(path), module_relative=False, optionflags=doctest.ELLIPSIS)
+    assert result.attempted >= 4 and result.failed == 0
+
+
+def test_target_instance_where_continuous_highs_reference_was_wrong() -> None:
+    # found by a stress run: scipy 1.17.1's HiGHS with continuous coverage variables called 28 optimal here;
+    # with binary coverage variables (tests/test_models_support.py) it agrees with CBC on 22
+    reach = geo_instance(66750, 130, 28, 3.1007321733537245, spacing=2.0)
+    plan = cover_target(reach, 1.0)
+    assert plan.status == SolveStatus.OPTIMAL
+    assert plan.objective == pytest.approx(ref_target(reach, 1.0))  # scipy.optimize.milp (HiGHS)
+    assert plan.objective == 22.0
+    coverable = float(reach.weight[reach.coverable].sum())
+    assert plan.covered_weight >= coverable * (1 - 1e-9)
+    x = np.zeros(reach.shape[1], dtype=bool)
+    x[plan.sites] = True
+    pairs = reach.close_pairs
+    assert not (x[pairs[:, 0]] & x[pairs[:, 1]]).any()

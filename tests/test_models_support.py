@@ -57,6 +57,9 @@ def geo_instance(seed: int, n: int, m: int, radius: float, *, roles: bool = True
 
 # ----------------------------------------------------------------------------- independent reference
 # scipy.optimize.milp (HiGHS), a solver independent of python-mip/CBC, on the same matrix.
+# The coverage variables y are declared binary here (an equivalent formulation): with continuous y,
+# the HiGHS bundled with scipy 1.17.1 returned a wrong "optimal" 28 (24 without presolve) on a
+# coverage-target instance where a feasible plan of cost 22 exists (found by a stress run).
 
 
 def _pair_rows(pairs: np.ndarray, nvar: int) -> sp.csr_matrix:
@@ -100,7 +103,7 @@ def ref_mclp(reach: Reach, p: int | None = None, budget: float | None = None) ->
     if len(reach.close_pairs):
         cons.append(LinearConstraint(_pair_rows(reach.close_pairs, m + n), -np.inf, 1))
     c = np.concatenate([np.zeros(m), -reach.weight])
-    r = milp(c, constraints=cons, integrality=np.concatenate([np.ones(m), np.zeros(n)]), bounds=Bounds(lb, np.ones(m + n)))
+    r = milp(c, constraints=cons, integrality=np.ones(m + n), bounds=Bounds(lb, np.ones(m + n)))
     return None if r.status == 2 else -float(r.fun)
 
 
@@ -113,14 +116,14 @@ def ref_target(reach: Reach, share: float) -> float | None:
     if len(reach.close_pairs):
         cons.append(LinearConstraint(_pair_rows(reach.close_pairs, m + n), -np.inf, 1))
     c = np.concatenate([reach.cost, np.zeros(n)])
-    r = milp(c, constraints=cons, integrality=np.concatenate([np.ones(m), np.zeros(n)]), bounds=Bounds(lb, np.ones(m + n)))
+    r = milp(c, constraints=cons, integrality=np.ones(m + n), bounds=Bounds(lb, np.ones(m + n)))
     return None if r.status == 2 else float(r.fun)
 
 
 def ref_backup(reach: Reach, p: int, floor: float, k: int = 2) -> float | None:
     """Most weight covered >= k times with first coverage >= floor x coverable weight, by scipy/HiGHS.
 
-    Variables: x (sites, binary), y1 (covered once, continuous), yk (covered k times, binary).
+    Variables: x (sites), y1 (covered once), yk (covered k times), all binary.
     """
     A = reach.pattern.astype(float)
     n, m = A.shape
@@ -141,6 +144,6 @@ def ref_backup(reach: Reach, p: int, floor: float, k: int = 2) -> float | None:
         cons.append(LinearConstraint(_pair_rows(reach.close_pairs, m + 2 * n), -np.inf, 1))
     lb = np.concatenate([(reach.role == SiteRole.KEPT).astype(float), np.zeros(2 * n)])
     c = np.concatenate([np.zeros(m + n), -reach.weight])
-    integ = np.concatenate([np.ones(m), np.zeros(n), np.ones(n)])
+    integ = np.ones(m + 2 * n)
     r = milp(c, constraints=cons, integrality=integ, bounds=Bounds(lb, np.ones(m + 2 * n)))
     return None if r.status == 2 else -float(r.fun)

@@ -39,6 +39,11 @@ class Clock:
     def deadline(self) -> float:
         return self.t0 + self.limit
 
+    def reserve(self, seconds: float) -> None:
+        """Keep ``seconds`` of the budget for the work after the solver (evaluating the plan)."""
+        self.limit = max(self.limit - max(float(seconds), 0.0), 0.0)
+        self.reserved = getattr(self, "reserved", 0.0) + max(float(seconds), 0.0)
+
     def mark(self, phase: str) -> None:
         now = time.perf_counter()
         self.phases[phase] = self.phases.get(phase, 0.0) + now - self._last
@@ -156,7 +161,7 @@ def prepare(reach: Reach) -> Prepared:
     pat = as_pattern(reach.matrix)
     rows = np.flatnonzero(np.diff(pat.indptr) > 0)
     return Prepared(
-        pattern=pat[rows],
+        pattern=pat if len(rows) == pat.shape[0] else pat[rows],
         rows=rows,
         weight=np.asarray(reach.weight, dtype=np.float64)[rows],
         cost=np.asarray(reach.cost, dtype=np.float64),

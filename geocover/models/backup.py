@@ -136,6 +136,7 @@ def cover_twice(
         raise ParameterError(f"k: must be a whole number >= 1 (2 for backup coverage), got {k!r}", param="k")
     k = int(k)
     clock = Clock(time_limit)
+    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
     params: dict[str, Any] = {"sites": p, "first_floor": float(first_floor), "k": k, "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
     log: list[str] = []
     m = reach.shape[1]

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import logging
-import math
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -99,7 +98,9 @@ def tradeoff(
     The instance is reduced once; each independent component gets its own
     curve (every point solved to optimality or reported with its gap) and
     the components are combined exactly for every p by dynamic programming.
-    ``time_limit`` is the budget *per point* (and for the LSCP end point).
+    ``time_limit`` is the budget for the whole call: a quarter goes to the
+    LSCP end point, the rest is shared evenly by the curve points (so on a
+    large instance each point may come back FEASIBLE with its gap).
 
     Examples
     --------
@@ -119,7 +120,9 @@ def tradeoff(
     if max_sites > n_cand:
         raise ParameterError(f"max_sites: {max_sites} asked for but there are only {n_cand} candidate sites; use at most {n_cand}", param="max_sites")
     P = int(max_sites)
-    clock = Clock(time_limit * (P + 1))
+    lscp_share = 0.25 * time_limit if with_lscp else 0.0
+    clock = Clock(time_limit - lscp_share)
+    clock.reserve(min(0.2 * (time_limit - lscp_share), (0.05 + 2e-8 * reach.matrix.nnz) * P))
     coverable = float(reach.weight[reach.coverable].sum())
     kept = np.asarray(reach.role) == SiteRole.KEPT
     log: list[str] = []
@@ -127,7 +130,7 @@ def tradeoff(
         status = SolveStatus.INFEASIBLE if kept_conflict(reach) else SolveStatus.EMPTY
         z = np.zeros(P)
         return Tradeoff(np.arange(1, P + 1), z, z, z, z, (status,) * P, tuple(np.flatnonzero(kept) for _ in range(P)), coverable, reach.uncoverable_weight, None, {lv: None for lv in LEVELS}, {lv: False for lv in LEVELS}, clock.elapsed)
-    core = build_most_core(reach, resource="count", reduce=reduce)
+    core = build_most_core(reach, resource="count", reduce=reduce, deadline=clock.t0 + time_limit / 3.0)
     mat, w = core.matrix, core.weight
     if mat.shape[0]:
         ncomp, row_lab, col_lab = components(mat, core.conflicts) if reduce else (1, np.zeros(mat.shape[0], dtype=np.int64), np.zeros(mat.shape[1], dtype=np.int64))
@@ -135,6 +138,8 @@ def tradeoff(
         ncomp, row_lab, col_lab = 0, np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
     curves, bounds, plans, cols_list = [], [], [], []
     statuses: list[list[str]] = []
+    points = sum(int(min(P, core.paid[col_lab == c].sum())) + 1 for c in range(ncomp)) if ncomp else 1
+    per_point = max(clock.left, 0.0) / max(points, 1)
     for c in range(ncomp):
         rows = np.flatnonzero(row_lab == c)
         cols = np.flatnonzero(col_lab == c)
@@ -144,20 +149,21 @@ def tradeoff(
         sub.sort_indices()
         conf = core.conflicts[cols][:, cols] if core.conflicts is not None else None
         qmax = int(min(P, core.paid[cols].sum()))
-        vals, bnds, pl, st = most_curve(sub, w[rows], core.paid[cols], conf if conf is not None and conf.nnz else None, qmax, clock=clock, time_limit=time_limit, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, log=log)
+        vals, bnds, pl, st = most_curve(sub, w[rows], core.paid[cols], conf if conf is not None and conf.nnz else None, qmax, clock=clock, time_limit=per_point, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, log=log)
         curves.append(vals)
-        bounds.append(np.maximum.accumulate(bnds))
+        bounds.append(np.minimum.accumulate(bnds[::-1])[::-1])  # f(q) <= f(q') <= bound(q') for q' >= q
         plans.append(pl)
         cols_list.append(cols)
         statuses.append(st)
     covered, bound, gap, status, sites = [], [], [], [], []
+    pattern_csc = reach.pattern.tocsc()
     for p in range(1, P + 1):
         val, alloc = combine_curves(curves, p)
         ub, _ = combine_curves(bounds, p)
         local = [cols_list[c][plans[c][q]] for c, q in enumerate(alloc)]
         picked = core.columns[np.concatenate(local).astype(np.int64)] if local else np.zeros(0, dtype=np.int64)
         sites_p = np.union1d(core.fixed, picked)
-        sites_p = _drop_idle(reach, sites_p, kept)
+        sites_p = _drop_idle(reach, sites_p, kept, pattern_csc)
         got = float(reach.weight[reach.coverage_count(sites_p) > 0].sum())
         ub_total = max(got, ub + core.fixed_weight)
         all_opt = all(statuses[c][min(q, len(statuses[c]) - 1)] == "optimal" for c, q in enumerate(alloc)) and ub_total - got <= 1e-9 * max(got, 1.0)
@@ -185,5 +191,5 @@ def tradeoff(
         else:
             marks[lv] = None
             exact[lv] = bool((bound_share < lv - 1e-12).all())
-    lscp = cover_all(reach, use_cost=False, time_limit=time_limit, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, reduce=reduce) if with_lscp else None
+    lscp = cover_all(reach, use_cost=False, time_limit=max(lscp_share + max(clock.left, 0.0), 0.1), rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, reduce=reduce) if with_lscp else None
     return Tradeoff(np.arange(1, P + 1), covered_a, share, np.array(bound), np.array(gap), tuple(status), tuple(sites), coverable, reach.uncoverable_weight, lscp, marks, exact, clock.elapsed)

@@ -19,7 +19,7 @@ import time
 import numpy as np
 import scipy.sparse as sp
 
-__all__ = ["greedy_cover", "prune_cover", "greedy_most", "swap_most", "covered_weight"]
+__all__ = ["greedy_cover", "prune_cover", "greedy_most", "swap_most", "iterated_swap", "covered_weight"]
 
 _EPS = 1e-9
 
@@ -229,3 +229,50 @@ def swap_most(
             break
         chosen = np.array(sorted(set(chosen.tolist()) - {int(out[a])} | {int(k)}), dtype=np.int64)
     return chosen
+
+
+def iterated_swap(
+    mat: sp.csr_matrix,
+    weight: np.ndarray,
+    chosen: np.ndarray,
+    *,
+    sites: int,
+    swappable: np.ndarray | None = None,
+    resource: np.ndarray | None = None,
+    seed: int = 0,
+    iterations: int = 50,
+    kick: int = 3,
+    deadline: float | None = None,
+) -> np.ndarray:
+    """Iterated local search around :func:`swap_most` for the p-site model.
+
+    Each iteration replaces ``kick`` random sites of the best plan by random
+    other sites, descends with best-improvement swaps and keeps the result if
+    it covers more.  Deterministic for a given seed and iteration budget.
+    """
+    m = mat.shape[1]
+    rng = np.random.default_rng(seed)
+    res = np.ones(m) if resource is None else np.asarray(resource, dtype=np.float64)
+    best = np.array(sorted(np.asarray(chosen, dtype=np.int64)), dtype=np.int64)
+    best_val = covered_weight(mat, weight, best)
+    movable = best if swappable is None else best[np.asarray(swappable, dtype=bool)[best]]
+    paid_pool = np.flatnonzero(res > 0)
+    for _ in range(iterations):
+        if deadline is not None and time.perf_counter() > deadline:
+            break
+        movable = best[res[best] > 0] if swappable is None else best[(res[best] > 0) & np.asarray(swappable, dtype=bool)[best]]
+        if len(movable) == 0:
+            break
+        k = min(kick, len(movable))
+        out = rng.choice(movable, size=k, replace=False)
+        pool = np.setdiff1d(paid_pool, best)
+        if len(pool) < k:
+            break
+        inn = rng.choice(pool, size=k, replace=False)
+        trial = np.union1d(np.setdiff1d(best, out), inn)
+        trial = swap_most(mat, weight, trial, swappable=swappable, resource=resource, deadline=deadline)
+        val = covered_weight(mat, weight, trial)
+        if val > best_val + 1e-9 * max(1.0, best_val):
+            best, best_val = trial, val
+    del sites
+    return best

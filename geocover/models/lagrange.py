@@ -33,6 +33,8 @@ def lagrangian_cover(
     iterations: int = 400,
     deadline: float | None = None,
     heuristic_every: int = 10,
+    patience: int = 30,
+    f_min: float = 1e-4,
 ) -> tuple[float, np.ndarray | None]:
     """Best Lagrangian bound and the best cover found from the multipliers.
 
@@ -76,10 +78,10 @@ def lagrangian_cover(
             since = 0
         else:
             since += 1
-            if since >= 30:
+            if since >= patience:
                 f *= 0.5
                 since = 0
-        if f < 1e-4 or best_bound >= best_obj - 1e-9 * scale:
+        if f < f_min or best_bound >= best_obj - 1e-9 * scale:
             break
         if it % heuristic_every == 0:
             # repair: start from the Lagrangian columns, cover the rest by reduced-cost greedy
@@ -110,3 +112,71 @@ def lagrangian_cover(
         u = np.maximum(0.0, u + t * g)
     # guard the bound against rounding in the sums
     return best_bound - 1e-9 * scale, best_plan
+
+
+def lagrangian_most(
+    mat: sp.csr_matrix,
+    weight: np.ndarray,
+    paid: np.ndarray,
+    p: int,
+    *,
+    lower: float,
+    iterations: int = 3000,
+    deadline: float | None = None,
+    patience: int = 100,
+) -> float:
+    """Lagrangian upper bound for maximal covering with at most ``p`` paid columns.
+
+    Relaxing ``y_i <= sum_j a_ij x_j`` with ``lam_i >= 0`` gives, for every
+    ``lam >= 0``, the valid upper bound
+
+        U(lam) = sum_i max(0, w_i - lam_i) + sum_{free j} max(0, v_j) + (sum of the p largest v_j, paid j)
+
+    with ``v_j = sum_{i in rows(j)} lam_i`` (Galvao & ReVelle 1996, European
+    Journal of Operational Research 88(1), use the same relaxation).  The
+    smallest value seen is returned.  ``lower`` is the value of a known plan.
+    """
+    n, m = mat.shape
+    w = np.asarray(weight, dtype=np.float64)
+    paid = np.asarray(paid, dtype=bool)
+    A = sp.csr_matrix(mat, dtype=np.float64)
+    AT = sp.csr_matrix(A.T)
+    lam = 0.5 * w
+    best = math.inf
+    f = 2.0
+    since = 0
+    scale = max(1.0, float(w.sum()))
+    paid_idx = np.flatnonzero(paid)
+    free_idx = np.flatnonzero(~paid)
+    p = int(min(p, len(paid_idx)))
+    for it in range(iterations):
+        if deadline is not None and time.perf_counter() > deadline:
+            break
+        v = AT @ lam
+        y = w - lam > 0
+        x = np.zeros(m)
+        x[free_idx[v[free_idx] > 0]] = 1.0
+        if p > 0:
+            vp = v[paid_idx]
+            top = np.argpartition(-vp, p - 1)[:p] if p < len(vp) else np.arange(len(vp))
+            top = top[vp[top] > 0]
+            x[paid_idx[top]] = 1.0
+        U = float(np.maximum(w - lam, 0.0).sum() + (v * x).sum())
+        if U < best - 1e-12 * scale:
+            best = U
+            since = 0
+        else:
+            since += 1
+            if since >= patience:
+                f *= 0.5
+                since = 0
+        if f < 1e-6 or best <= lower + 1e-9 * scale:
+            break
+        g = (A @ x) - y  # dU/dlam
+        g[(lam <= 0) & (g > 0)] = 0.0
+        norm = float(g @ g)
+        if norm <= 0:
+            break
+        t = f * (U - lower) / norm
+        lam = np.maximum(0.0, lam - t * g)
+    return best + 1e-9 * scale

@@ -19,6 +19,7 @@ from ..values import Plan, Reach, SolveStatus
 from ._common import Clock, check_common, check_reach, conflict_matrix, integral, kept_conflict, make_plan, prepare, violates_spacing
 from .greedy import greedy_cover, prune_cover
 from .lagrange import lagrangian_cover
+from .localsearch import cover_local_search
 from .reduce import components, reduce_lscp
 from .solver import solve_mip
 
@@ -28,6 +29,10 @@ __all__ = ["cover_all", "solve_cover_core"]
 
 # components smaller than this are solved in-process (a fork costs more than the solve)
 _GUARD_NNZ = 20_000
+# local-search step budget: small instances get a short polish, large ones up to _LS_MAX_STEPS
+_LS_MIN_STEPS = 2_000
+_LS_MAX_STEPS = 300_000
+_LAG_ITERATIONS = 10_000
 
 
 def _ceil_bound(bound: float, costs_integral: bool) -> float:
@@ -55,6 +60,7 @@ def solve_cover_core(
     Returns ``(chosen columns, objective, bound, status)`` with status one of
     "optimal", "feasible", "heuristic", "infeasible".
     """
+    t_start = clock.elapsed
     n, m = mat.shape
     cost = np.asarray(cost, dtype=np.float64)
     ints = integral(cost)
@@ -70,9 +76,35 @@ def solve_cover_core(
         best_obj = float(cost[best].sum())
         log.append(f"greedy + prune: {best_obj:g} ({len(best)} sites)")
     clock.mark("greedy")
-    if use_lagrange and conflicts is None and n > 1 and best_obj > bound + 1e-9:
-        lag_deadline = time.perf_counter() + max(0.0, 0.2 * min(time_limit, clock.left))
-        lag_bound, lag_plan = lagrangian_cover(mat, cost, upper=best_obj if math.isfinite(best_obj) else float(cost.sum()), deadline=lag_deadline)
+    big = mat.nnz > _GUARD_NNZ
+
+    def budget_left() -> float:
+        return max(min(time_limit - (clock.elapsed - t_start), clock.left), 0.0)
+
+    if not big:
+        # small: CBC proves these in milliseconds; the heuristics below only run if it does not
+        got = _mip_cover(mat, cost, conflicts, best, best_obj, bound, ints, time_limit=0.5 * budget_left(), rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, log=log, clock=clock)
+        if got[3] in ("optimal", "infeasible"):
+            return got
+        best, best_obj, bound = got[0], got[1], max(bound, got[2]) if math.isfinite(got[2]) else bound
+
+    if best is not None and conflicts is None and best_obj > bound + 1e-9:
+        # row-weighting local search: a step budget keeps it deterministic, the deadline keeps it in time
+        steps = int(min(_LS_MAX_STEPS, max(_LS_MIN_STEPS, mat.nnz))) if big else _LS_MIN_STEPS
+        ls = cover_local_search(mat, cost, best, seed=seed, max_steps=steps, deadline=time.perf_counter() + (0.65 if big else 0.25) * budget_left(), target=bound)
+        ls = prune_cover(mat, cost, ls)
+        ls_obj = float(cost[ls].sum())
+        clock.mark("local search")
+        log.append(f"local search ({steps} steps max): {ls_obj:g}")
+        if ls_obj < best_obj - 1e-9:
+            best, best_obj = ls, ls_obj
+    if use_lagrange and conflicts is None and n > 1 and best_obj > _ceil_bound(bound, ints) + 1e-9:
+        # Lagrangian bound (Beasley 1990); on set covering its best value approaches the LP bound
+        lag_bound, lag_plan = lagrangian_cover(
+            mat, cost, upper=best_obj if math.isfinite(best_obj) else float(cost.sum()),
+            iterations=_LAG_ITERATIONS, patience=300, f_min=1e-6, heuristic_every=200,
+            deadline=time.perf_counter() + 0.25 * budget_left(),
+        )
         clock.mark("lagrangian")
         if lag_plan is not None:
             lag_plan = prune_cover(mat, cost, lag_plan)
@@ -80,11 +112,33 @@ def solve_cover_core(
             if lag_obj < best_obj - 1e-9:
                 best, best_obj = lag_plan, lag_obj
         bound = max(bound, lag_bound)
-        log.append(f"lagrangian: bound {lag_bound:.4g}, plan {best_obj:g}")
+        log.append(f"lagrangian: bound {lag_bound:.6g}, best plan {best_obj:g}")
     bound = _ceil_bound(bound, ints)
     if best is not None and best_obj <= bound + 1e-9:
         return best, best_obj, best_obj, "optimal"
-    left = min(time_limit, clock.left)
+    return _mip_cover(mat, cost, conflicts, best, best_obj, bound, ints, time_limit=budget_left(), rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, log=log, clock=clock)
+
+
+def _mip_cover(
+    mat: sp.csr_matrix,
+    cost: np.ndarray,
+    conflicts: sp.csr_matrix | None,
+    best: np.ndarray | None,
+    best_obj: float,
+    bound: float,
+    ints: bool,
+    *,
+    time_limit: float,
+    rel_gap: float,
+    threads: int,
+    seed: int,
+    solver: str,
+    log: list[str],
+    clock: Clock,
+) -> tuple[np.ndarray | None, float, float, str]:
+    """The set-covering MIP warm-started with ``best``; returns the better of the two."""
+    n, m = mat.shape
+    left = time_limit
     # the MIP: min c x, A x >= 1, x_i + x_j <= 1 for spacing conflicts
     A = mat.astype(np.float64)
     sense = [b"G"] * n
@@ -187,6 +241,7 @@ def cover_all(
     check_common(time_limit, rel_gap, threads, seed, solver)
     solver = str(solver).lower()
     clock = Clock(time_limit)
+    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
     n, m = reach.shape
     prep = prepare(reach)
     cost = prep.cost if use_cost else np.ones(m)
@@ -204,7 +259,8 @@ def cover_all(
         log.append("no demand can be reached by any site")
         c0 = float(cost[kept].sum())
         return plan(kept, c0, c0, SolveStatus.EMPTY)
-    core = reduce_lscp(prep.pattern, cost, fixed_open=kept, close_pairs=prep.pairs, rules=reduce)
+    # reductions may use up to a third of the time limit
+    core = reduce_lscp(prep.pattern, cost, fixed_open=kept, close_pairs=prep.pairs, rules=reduce, deadline=clock.t0 + clock.limit / 3.0)
     clock.mark("reduce")
     params["reduction"] = core.stats
     for s in core.stats:
@@ -249,10 +305,12 @@ def cover_all(
             remaining -= sizes[c]
             sel, obj, bnd, st = solve_cover_core(sub, core.cost[cols], conf if conf is not None and conf.nnz else None, clock=clock, time_limit=share, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, log=log)
             statuses.append(st)
-            if st == "infeasible" or sel is None:
+            if sel is None:
                 if st == "infeasible":
+                    log.append("the spacing rule leaves no way to cover every coverable demand row")
                     return plan(np.concatenate(chosen), math.nan, math.nan, SolveStatus.INFEASIBLE)
-                return plan(np.concatenate(chosen), math.nan, math.nan, SolveStatus.INFEASIBLE if st == "infeasible" else SolveStatus.HEURISTIC)
+                log.append("no cover satisfying the spacing rule was found within the time limit")
+                return plan(np.concatenate(chosen), math.nan, math.nan, SolveStatus.HEURISTIC)
             chosen.append(core.columns[cols[sel]])
             total_obj += obj
             total_bound += bnd

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import logging
 import math
+import time
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -20,7 +21,8 @@ import scipy.sparse as sp
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
 from ._common import Clock, check_common, check_reach, conflict_matrix, kept_conflict, make_plan, prepare, violates_spacing
-from .greedy import covered_weight, greedy_most, swap_most
+from .greedy import covered_weight, greedy_most, iterated_swap, swap_most
+from .lagrange import lagrangian_most
 from .reduce import components, dominated_columns, merge_rows
 from .solver import solve_mip
 
@@ -29,6 +31,10 @@ logger = logging.getLogger(__name__)
 __all__ = ["cover_most", "MostCore", "build_most_core", "solve_most_core", "most_curve", "combine_curves"]
 
 _GUARD_NNZ = 20_000
+_ILS_ITERATIONS = 40
+# component DP: only when every component is small (its MIPs take milliseconds) and the curves are short
+_DP_MAX_SOLVES = 2_000
+_DP_SMALL_NNZ = 5_000
 
 
 @dataclass
@@ -47,7 +53,7 @@ class MostCore:
     stats: list[dict[str, Any]] = field(default_factory=list)
 
 
-def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominance: bool = True, optional_free: bool = True, unit_cost: bool = False) -> MostCore:
+def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominance: bool = True, optional_free: bool = True, unit_cost: bool = False, deadline: float | None = None) -> MostCore:
     """Take kept sites out, merge identical rows, drop dominated columns.
 
     ``resource`` is "count" (dominance needs a column that counts no more
@@ -89,7 +95,7 @@ def build_most_core(reach: Reach, *, resource: str, reduce: bool, allow_dominanc
         res = paid.astype(np.float64) if resource == "count" else cost
         # drop dead columns before the dominance test so they cannot dominate
         live_sub = sub[:, np.flatnonzero(alive)]
-        dead_local = dominated_columns(live_sub, res[alive], can_dominate=~in_pair[alive])
+        dead_local = dominated_columns(live_sub, res[alive], can_dominate=~in_pair[alive], deadline=deadline)
         alive_idx = np.flatnonzero(alive)
         alive[alive_idx[dead_local]] = False
         stats.append({"step": "dominated columns", "columns": int(alive.sum())})
@@ -175,11 +181,25 @@ def solve_most_core(
         best = swap_most(mat, w, best, resource=res, budget=None if count_model else float(cap), conflicts=conflicts, deadline=clock.t0 + clock.elapsed + 0.2 * max(min(time_limit, clock.left), 0.0))
         best_val = covered_weight(mat, w, best)
         log.append(f"swap: {best_val:.6g}")
+        if count_model and conflicts is None and m > cap > 0:
+            ils = iterated_swap(mat, w, best, sites=int(cap), resource=res, seed=seed, iterations=_ILS_ITERATIONS, deadline=time.perf_counter() + 0.1 * max(min(time_limit, clock.left), 0.0))
+            ils_val = covered_weight(mat, w, ils)
+            if ils_val > best_val:
+                best, best_val = ils, ils_val
+            log.append(f"iterated swap ({_ILS_ITERATIONS} kicks max): {best_val:.6g}")
     clock.mark("greedy")
     ub = _upper_bound(mat, w, res, cap, count_model) if conflicts is None else total
     tol = 1e-9 * max(total, 1.0)
     if best_val >= ub - tol:
         return best, best_val, best_val, "optimal"
+    if count_model and conflicts is None and n > 1:
+        big = mat.nnz > _GUARD_NNZ  # large: CBC may not finish its root LP, so the Lagrangian bound is what we report
+        lag = lagrangian_most(mat, w, res > 0, int(cap), lower=best_val, iterations=4000 if big else 1500, deadline=time.perf_counter() + (0.15 if big else 0.05) * max(min(time_limit, clock.left), 0.0))
+        clock.mark("lagrangian")
+        log.append(f"lagrangian bound: {lag:.6g}")
+        ub = min(ub, max(lag, best_val))
+        if best_val >= ub - tol or (ub - best_val) / max(best_val, 1e-9) <= rel_gap:
+            return best, best_val, ub if ub - best_val > tol else best_val, "optimal"
     left = min(time_limit, clock.left)
     # MIP: max w y; A x - y >= 0; res x <= cap; x_i + x_j <= 1 for conflicts; x binary, 0 <= y <= 1
     A = sp.hstack([mat.astype(np.float64), -sp.identity(n, format="csr")], format="csr")
@@ -360,6 +380,7 @@ def cover_most(
         if float(budget) < kept_cost - 1e-9:
             raise ParameterError(f"budget: {budget:g} is below the cost of the kept sites ({kept_cost:g}); raise it to at least {kept_cost:g}", param="budget")
     clock = Clock(time_limit)
+    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
     params: dict[str, Any] = {"sites": sites, "budget": budget, "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
     log: list[str] = []
 
@@ -374,7 +395,7 @@ def cover_most(
         log.append("no demand can be reached by any site")
         return plan(kept_idx, 0.0, 0.0, SolveStatus.EMPTY)
     count_model = sites is not None
-    core = build_most_core(reach, resource="count" if count_model else "cost", reduce=reduce)
+    core = build_most_core(reach, resource="count" if count_model else "cost", reduce=reduce, deadline=clock.t0 + clock.limit / 3.0)
     clock.mark("reduce")
     params["reduction"] = core.stats
     res = core.paid.astype(np.float64) if count_model else core.cost
@@ -383,7 +404,15 @@ def cover_most(
     mat, w = core.matrix, core.weight
     ncomp, row_lab, col_lab = components(mat, core.conflicts) if mat.shape[0] else (0, np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64))
     params["components"] = int(ncomp)
+    use_dp = False
     if reduce and count_model and ncomp > 1:
+        # the exact DP needs each component's curve up to p; worth it when that is a modest number of small solves
+        paid_per = np.bincount(col_lab, weights=core.paid.astype(float), minlength=ncomp)
+        nnz_per = np.bincount(row_lab, weights=np.diff(mat.indptr), minlength=ncomp)
+        solves = float(np.minimum(paid_per, p).sum() + ncomp)
+        use_dp = bool((nnz_per <= _DP_SMALL_NNZ).all()) and solves <= _DP_MAX_SOLVES
+        params["component_dp"] = bool(use_dp)
+    if use_dp:
         chosen_local, val, bnd, status = _solve_by_components(mat, w, core.paid, core.conflicts, p, ncomp, row_lab, col_lab, kw)
     else:
         chosen_local, val, bnd, status = solve_most_core(mat, w, res, cap, core.conflicts, count_model=count_model, time_limit=clock.left, **kw)
@@ -401,12 +430,12 @@ def cover_most(
     return plan(chosen, obj, bound, st)
 
 
-def _drop_idle(reach: Reach, chosen: np.ndarray, kept: np.ndarray) -> np.ndarray:
+def _drop_idle(reach: Reach, chosen: np.ndarray, kept: np.ndarray, pattern_csc: sp.csc_matrix | None = None) -> np.ndarray:
     """Remove non-kept sites that add no coverage (highest index first)."""
     chosen = np.asarray(chosen, dtype=np.int64)
     if len(chosen) == 0:
         return chosen
-    pat = reach.pattern.tocsc()
+    pat = reach.pattern.tocsc() if pattern_csc is None else pattern_csc
     cnt = reach.coverage_count(chosen)
     w = reach.weight
     keep = np.ones(len(chosen), dtype=bool)
@@ -453,7 +482,7 @@ def _solve_by_components(mat, w, paid, conflicts, p, ncomp, row_lab, col_lab, kw
         cols_list.append(cols)
         statuses.extend(st)
     val, alloc = combine_curves(curves, p)
-    ub, _ = combine_curves([np.maximum.accumulate(b) for b in bounds], p)
+    ub, _ = combine_curves([np.minimum.accumulate(b[::-1])[::-1] for b in bounds], p)  # f(q) <= bound(q') for q' >= q
     chosen = [cols_list[c][plans[c][q]] for c, q in enumerate(alloc)]
     chosen_all = np.concatenate(chosen) if chosen else np.zeros(0, dtype=np.int64)
     log.append(f"components: {len(curves)} solved apart, combined by dynamic programming")

@@ -51,6 +51,8 @@ def as_pattern(matrix: sp.spmatrix) -> sp.csr_matrix:
     Every stored entry counts, explicit zeros included (a site on a demand
     point covers it at distance 0).
     """
+    if sp.isspmatrix_csr(matrix) and matrix.dtype == np.int8 and matrix.has_canonical_format and (matrix.nnz == 0 or matrix.data.min() == 1):
+        return matrix
     mat = sp.csr_matrix(matrix)
     if not mat.has_canonical_format:
         mat = mat.copy()
@@ -111,8 +113,10 @@ def merge_rows(mat: sp.csr_matrix, weight: np.ndarray) -> tuple[sp.csr_matrix, n
         with np.errstate(over="ignore"):
             k1[nz_rows] = np.add.reduceat(h1[mat.indices], starts)
             k2[nz_rows] = np.bitwise_xor.reduceat(h2[mat.indices], starts)
-    keys = np.stack([size.astype(np.uint64), k1, k2], axis=1)
-    _, first, group = np.unique(keys, axis=0, return_index=True, return_inverse=True)
+    # one 64-bit key per row (size, sum-hash and xor-hash mixed); the exact check below catches collisions
+    with np.errstate(over="ignore"):
+        keys = k1 ^ (k2 * np.uint64(0x9E3779B97F4A7C15)) ^ (size.astype(np.uint64) * np.uint64(0xC2B2AE3D27D4EB4F))
+    _, first, group = np.unique(keys, return_index=True, return_inverse=True)
     group = group.ravel()
     # renumber groups by first occurrence so the result does not depend on hash order
     order = np.argsort(first, kind="stable")
@@ -122,8 +126,9 @@ def merge_rows(mat: sp.csr_matrix, weight: np.ndarray) -> tuple[sp.csr_matrix, n
     rep = first[order]
     # verify exactness: every row must equal its representative (guards against hash collisions)
     expanded_rep = rep[group]
-    if mat.nnz and not np.array_equal(size, size[expanded_rep]):
-        raise AssertionError("row merge: hash collision on sizes")  # pragma: no cover
+    if mat.nnz and not np.array_equal(size, size[expanded_rep]):  # pragma: no cover - 64-bit collision
+        logger.warning("row merge: hash collision detected, falling back to exact grouping")
+        return _merge_rows_exact(mat, weight)
     if mat.nnz:
         idx_rep = _take_rows(mat, expanded_rep).indices
         if not np.array_equal(idx_rep, mat.indices):  # pragma: no cover - 128-bit collision
@@ -157,7 +162,7 @@ def _bitmask(mat: sp.csr_matrix, salt: int) -> np.ndarray:
     return out
 
 
-def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndarray, np.ndarray]:
+def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000, max_candidates: int | None = None, deadline: float | None = None) -> tuple[np.ndarray, np.ndarray] | None:
     """All pairs ``(a, b)``, ``a != b``, of non-empty rows with ``set(b) <= set(a)``.
 
     Candidate pairs come from the rarest element of ``b`` (``a`` must
@@ -168,7 +173,10 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
     Returns
     -------
     sup, sub : int arrays
-        ``set(sub[t]) <= set(sup[t])`` for every t.
+        ``set(sub[t]) <= set(sup[t])`` for every t; None when more than
+        ``max_candidates`` candidate pairs would have to be checked (the
+        caller then skips the rule, which is always safe), or when the
+        ``deadline`` (a ``time.perf_counter()`` value) passes.
     """
     mat = sp.csr_matrix(mat)
     n, m = mat.shape
@@ -184,16 +192,26 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
     score = cnt[indices] * (m + 1) + indices
     rare_score = np.minimum.reduceat(score, indptr[:-1][nzrows])
     rare = rare_score % (m + 1)
-    # rows b grouped by their rarest element
-    order = np.lexsort((nzrows, rare))
+    # rows b grouped by their rarest element, smallest first: a can only contain b if size[b] < size[a]
+    # (or == for identical rows, which callers merge beforehand)
+    smax = int(size.max()) + 1
+    order = np.lexsort((nzrows, size[nzrows], rare))
     b_sorted = nzrows[order]
+    b_key = rare[order] * smax + size[b_sorted]
     b_count = np.bincount(rare, minlength=m)
     b_start = np.concatenate([[0], np.cumsum(b_count)[:-1]])
     mask1 = _bitmask(mat, 1)
     mask2 = _bitmask(mat, 2)
+    nmask1 = ~mask1
+    nmask2 = ~mask2
+    b_sorted32 = b_sorted.astype(np.int32)
     keys = _row_of_nonzero(indptr) * m + indices  # sorted (canonical CSR)
     row_nz = _row_of_nonzero(indptr)
-    per_nz = b_count[indices]  # candidate b's for each nonzero (a, e)
+    row_nz32 = row_nz.astype(np.int32)
+    # candidate b's for each nonzero (a, e): rarest element e and size <= size[a]
+    per_nz = np.searchsorted(b_key, indices * smax + size[row_nz], side="right") - b_start[indices]
+    if max_candidates is not None and int(per_nz.sum()) > max_candidates:
+        return None
     sup_out: list[np.ndarray] = []
     sub_out: list[np.ndarray] = []
     # chunk over nonzeros so that each chunk makes at most ~chunk candidate pairs
@@ -201,6 +219,8 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
     lo = 0
     total_nz = len(indices)
     while lo < total_nz:
+        if deadline is not None and time.perf_counter() > deadline:
+            return None
         base = csum[lo - 1] if lo else 0
         hi = int(np.searchsorted(csum, base + chunk, side="right"))
         hi = max(hi, lo + 1)
@@ -210,26 +230,41 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
         lo = hi
         if tot == 0:
             continue
-        a = np.repeat(row_nz[sl], reps)
-        first = np.repeat(b_start[indices[sl]], reps)
-        offs = np.arange(tot, dtype=np.int64) - np.repeat(np.cumsum(reps) - reps, reps)
-        b = b_sorted[first + offs]
-        keep = (a != b) & (size[b] <= size[a])
-        keep &= (mask1[b] & ~mask1[a]) == 0
-        keep &= (mask2[b] & ~mask2[a]) == 0
+        a = np.repeat(row_nz32[sl], reps)
+        shift = np.repeat(b_start[indices[sl]] - (np.cumsum(reps) - reps), reps)
+        b = b_sorted32[shift + np.arange(tot, dtype=np.int64)]
+        keep = (mask1[b] & nmask1[a]) == 0
         a = a[keep]
         b = b[keep]
+        keep = ((mask2[b] & nmask2[a]) == 0) & (a != b)
+        a = a[keep].astype(np.int64)
+        b = b[keep].astype(np.int64)
         if len(a) == 0:
             continue
-        # full check: every element of b is in a
+        # quick check on up to 8 evenly spaced elements of b, then the full check on the survivors
+        nb = size[b]
+        samp = np.minimum(nb, 8)
+        tot1 = int(samp.sum())
+        pid1 = np.repeat(np.arange(len(a), dtype=np.int64), samp)
+        k1 = np.arange(tot1, dtype=np.int64) - np.repeat(np.cumsum(samp) - samp, samp)
+        pos_in_b = (k1 * np.repeat(nb, samp)) // np.repeat(samp, samp)
+        elem = indices[np.repeat(indptr[b], samp) + pos_in_b]
+        probe = a[pid1] * m + elem
+        pos = np.minimum(np.searchsorted(keys, probe), len(keys) - 1)
+        ok1 = np.bincount(pid1[keys[pos] != probe], minlength=len(a)) == 0
+        a = a[ok1]
+        b = b[ok1]
+        if len(a) == 0:
+            continue
+        if deadline is not None and time.perf_counter() > deadline:
+            return None
         nb = size[b]
         tot2 = int(nb.sum())
         pair_id = np.repeat(np.arange(len(a), dtype=np.int64), nb)
         offs2 = np.arange(tot2, dtype=np.int64) - np.repeat(np.cumsum(nb) - nb, nb)
         elem = indices[np.repeat(indptr[b], nb) + offs2]
         probe = a[pair_id] * m + elem
-        pos = np.searchsorted(keys, probe)
-        pos = np.minimum(pos, len(keys) - 1)
+        pos = np.minimum(np.searchsorted(keys, probe), len(keys) - 1)
         hit = keys[pos] == probe
         miss = np.bincount(pair_id[~hit], minlength=len(a))
         ok = miss == 0
@@ -240,14 +275,22 @@ def subset_pairs(mat: sp.csr_matrix, *, chunk: int = 4_000_000) -> tuple[np.ndar
     return np.concatenate(sup_out), np.concatenate(sub_out)
 
 
-def dominated_rows(mat: sp.csr_matrix) -> np.ndarray:
+MAX_CANDIDATES = 400_000_000  #: about 10 s of subset checks; beyond that a dominance rule is skipped
+_CANDIDATES_PER_SECOND = 2.0e7  #: conservative rate of the vectorised subset check (measured about 4e7/s)
+
+
+def dominated_rows(mat: sp.csr_matrix, *, max_candidates: int = MAX_CANDIDATES, deadline: float | None = None) -> np.ndarray | None:
     """Boolean mask of rows that are strict supersets of another row (LSCP only).
 
     Rows must already be merged (no two identical), so every superset is strict.
     Covering the smaller row covers the larger one, so the larger constraint
     is redundant.
     """
-    sup, sub = subset_pairs(mat)
+    found = subset_pairs(mat, max_candidates=max_candidates, deadline=deadline)
+    if found is None:
+        logger.info("row dominance skipped: too many candidate pairs")
+        return None
+    sup, sub = found
     out = np.zeros(mat.shape[0], dtype=bool)
     # identical rows (if the caller did not merge) keep the lower index
     size = np.diff(mat.indptr)
@@ -264,6 +307,8 @@ def dominated_columns(
     *,
     can_dominate: np.ndarray | None = None,
     can_drop: np.ndarray | None = None,
+    max_candidates: int = 0,
+    deadline: float | None = None,
 ) -> np.ndarray:
     """Boolean mask of columns dominated by another column.
 
@@ -282,9 +327,14 @@ def dominated_columns(
     csc_as_rows = sp.csr_matrix(mat.T)
     csc_as_rows.sort_indices()
     resource = np.asarray(resource, dtype=np.float64)
-    sup, sub = subset_pairs(csc_as_rows)
+    found = subset_pairs(csc_as_rows, max_candidates=max_candidates or MAX_CANDIDATES, deadline=deadline)
     size = np.diff(csc_as_rows.indptr)
     out = np.zeros(m, dtype=bool)
+    if found is None:
+        logger.info("column dominance skipped: too many candidate pairs")
+        sup = sub = np.zeros(0, dtype=np.int64)
+    else:
+        sup, sub = found
     if len(sup):
         strict_set = size[sub] < size[sup]
         ok = (resource[sup] < resource[sub]) | ((resource[sup] == resource[sub]) & (strict_set | (sup < sub)))
@@ -321,6 +371,7 @@ def reduce_lscp(
     close_pairs: np.ndarray | None = None,
     rules: bool = True,
     max_rounds: int = 50,
+    deadline: float | None = None,
 ) -> LscpCore:
     """Reduce an LSCP instance exactly.
 
@@ -338,7 +389,18 @@ def reduce_lscp(
         False: only merge identical rows and take the fixed columns out (the
         "bare" model).  True: also row and column dominance and essential
         sites, until nothing changes.
+    deadline : float, optional
+        ``time.perf_counter()`` value after which no further round starts;
+        the dominance checks are also sized to the time left (a skipped
+        rule only leaves the instance larger, never wrong).
     """
+
+    def budget() -> int:
+        if deadline is None:
+            return MAX_CANDIDATES
+        left = deadline - time.perf_counter()
+        return int(max(0.0, min(float(MAX_CANDIDATES), _CANDIDATES_PER_SECOND * left)))
+
     t0 = time.perf_counter()
     n, m = mat.shape
     cost = np.asarray(cost, dtype=np.float64)
@@ -351,15 +413,19 @@ def reduce_lscp(
     cur = as_pattern(mat)
     infeasible = False
 
-    def open_columns(cols: np.ndarray) -> None:
+    def open_columns(cols: np.ndarray) -> bool:
+        """Open ``cols`` and close their spacing partners; False if two open columns conflict."""
         is_open[cols] = True
         alive_col[cols] = False
+        if len(pairs) and (is_open[pairs[:, 0]] & is_open[pairs[:, 1]]).any():
+            return False
         if len(pairs):
             partner = np.concatenate([pairs[np.isin(pairs[:, 0], cols), 1], pairs[np.isin(pairs[:, 1], cols), 0]])
             alive_col[partner] = False
+        return True
 
     if fixed_open is not None and len(fixed_open):
-        open_columns(np.asarray(fixed_open, dtype=np.int64))
+        infeasible |= not open_columns(np.asarray(fixed_open, dtype=np.int64))
 
     def apply_columns(cur: sp.csr_matrix) -> tuple[sp.csr_matrix, bool]:
         """Drop rows covered by open columns and dead columns from the matrix."""
@@ -374,18 +440,21 @@ def reduce_lscp(
         bad = bool((np.diff(sub.indptr) == 0).any())
         return sub, bad
 
-    cur, bad = apply_columns(cur)
-    if bad:
-        infeasible = True
+    if is_open.any() or not alive_col.all():
+        cur, bad = apply_columns(cur)
+        infeasible |= bad
     cur, _, _ = merge_rows(cur, np.ones(cur.shape[0]))
     stats.append({"step": "merge identical rows", "rows": cur.shape[0], "columns": int(alive_col.sum()), "nnz": int(cur.nnz), "seconds": time.perf_counter() - t0})
     rounds = 0
     while rules and not infeasible and rounds < max_rounds and cur.shape[0]:
+        if deadline is not None and time.perf_counter() > deadline:
+            stats.append({"step": "stopped", "reason": "reduction time budget used"})
+            break
         rounds += 1
         changed = False
         # dominated columns (resource = cost); columns in a spacing pair never dominate
         t = time.perf_counter()
-        dead = dominated_columns(cur, cost, can_dominate=~in_pair, can_drop=alive_col)
+        dead = dominated_columns(cur, cost, can_dominate=~in_pair, can_drop=alive_col, max_candidates=max(budget(), 1), deadline=deadline)
         dead &= alive_col
         if dead.any():
             alive_col[dead] = False
@@ -400,7 +469,8 @@ def reduce_lscp(
         single = np.diff(cur.indptr) == 1
         if single.any():
             ess = np.unique(cur.indices[cur.indptr[:-1][single]])
-            open_columns(ess)
+            # two essential sites that may not both open: some row cannot be covered
+            infeasible |= not open_columns(ess)
             changed = True
             cur, bad = apply_columns(cur)
             infeasible |= bad
@@ -411,7 +481,10 @@ def reduce_lscp(
         t = time.perf_counter()
         before = cur.shape[0]
         cur, _, _ = merge_rows(cur, np.ones(before))
-        drop = dominated_rows(cur)
+        drop = dominated_rows(cur, max_candidates=budget(), deadline=deadline)
+        if drop is None:
+            stats.append({"step": f"dominated rows (round {rounds})", "skipped": "too many candidate pairs"})
+            break
         if drop.any():
             cur = cur[~drop]
         if cur.shape[0] != before:

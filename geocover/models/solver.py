@@ -31,6 +31,7 @@ logger = logging.getLogger(__name__)
 __all__ = ["MipResult", "solve_mip", "SOLVERS"]
 
 SOLVERS = ("cbc", "highs")
+_BULK_LOAD = True  #: one Cbc_loadProblem call; False: one Cbc_addCol / Cbc_addRow call per column / row
 
 
 @dataclass
@@ -117,6 +118,56 @@ def _build_cbc(model: Any, c: np.ndarray, A: sp.csr_matrix, sense: np.ndarray, r
     model._geocover_buffers = (ind, val)
 
 
+_LOAD_CDEF = """void Cbc_loadProblem(Cbc_Model *model, const int numcols, const int numrows,
+    const int *start, const int *index, const double *value,
+    const double *collb, const double *colub, const double *obj,
+    const double *rowlb, const double *rowub);"""
+
+
+@functools.lru_cache(maxsize=1)
+def _cbc_load_problem() -> Any:
+    """``Cbc_loadProblem`` from the CBC library python-mip loaded (not in mip's own declarations)."""
+    from mip.cbc import cbclib, ffi
+
+    try:
+        ffi.cdef(_LOAD_CDEF)
+        return cbclib.Cbc_loadProblem
+    except Exception:  # pragma: no cover - a CBC build without it: fall back to row-by-row
+        return None
+
+
+def _build_cbc_bulk(model: Any, c: np.ndarray, A: sp.csr_matrix, sense: np.ndarray, rhs: np.ndarray, lb: np.ndarray, ub: np.ndarray, integer: np.ndarray) -> bool:
+    """Hand CBC the whole matrix in one ``Cbc_loadProblem`` call (column-major arrays)."""
+    load = _cbc_load_problem()
+    if load is None:
+        return False
+    from mip.cbc import cbclib, ffi
+
+    mdl = model.solver._model
+    n_var = len(c)
+    csc = sp.csc_matrix(A)
+    csc.sort_indices()
+    start = np.ascontiguousarray(csc.indptr, dtype=np.intc)
+    index = np.ascontiguousarray(csc.indices, dtype=np.intc)
+    value = np.ascontiguousarray(csc.data, dtype=np.float64)
+    if len(index) == 0:
+        index = np.zeros(1, dtype=np.intc)
+        value = np.zeros(1, dtype=np.float64)
+    s = np.array([x if isinstance(x, bytes) else str(x).encode() for x in sense.tolist()], dtype="S1")
+    rlo = np.where((s == b"G") | (s == b"E"), rhs, -np.inf).astype(np.float64)
+    rhi = np.where((s == b"L") | (s == b"E"), rhs, np.inf).astype(np.float64)
+    arrays = [start, index, value, np.ascontiguousarray(lb, dtype=np.float64), np.ascontiguousarray(ub, dtype=np.float64), np.ascontiguousarray(c, dtype=np.float64), np.ascontiguousarray(rlo), np.ascontiguousarray(rhi)]
+    ptrs = [ffi.cast("int *", ffi.from_buffer(a)) for a in arrays[:2]] + [ffi.cast("double *", ffi.from_buffer(a)) for a in arrays[2:]]
+    load(mdl, n_var, A.shape[0], *ptrs)
+    for j in np.flatnonzero(integer).tolist():
+        cbclib.Cbc_setInteger(mdl, j)
+    cbclib.Cbc_setObjSense(mdl, -1.0 if model.sense == "MAX" else 1.0)
+    model.vars.update_vars(model.solver.num_cols())
+    model.constrs.update_constrs(model.solver.num_rows())
+    model._geocover_buffers = arrays
+    return True
+
+
 def _build_generic(model: Any, c: np.ndarray, A: sp.csr_matrix, sense: np.ndarray, rhs: np.ndarray, lb: np.ndarray, ub: np.ndarray, integer: np.ndarray) -> None:
     """Build through python-mip's ordinary API (used for HiGHS)."""
     import mip
@@ -140,7 +191,8 @@ def _solve_inprocess(solver: str, maximize: bool, c: np.ndarray, A: sp.csr_matri
     t0 = time.perf_counter()
     model = _new_model(solver, maximize)
     if solver == "cbc":
-        _build_cbc(model, c, A, sense, rhs, lb, ub, integer)
+        if not (_BULK_LOAD and _build_cbc_bulk(model, c, A, sense, rhs, lb, ub, integer)):
+            _build_cbc(model, c, A, sense, rhs, lb, ub, integer)
     else:
         _build_generic(model, c, A, sense, rhs, lb, ub, integer)
     build = time.perf_counter() - t0
@@ -154,7 +206,9 @@ def _solve_inprocess(solver: str, maximize: bool, c: np.ndarray, A: sp.csr_matri
         if solver == "cbc":
             from mip.cbc import cbclib, ffi
 
-            sv = np.ascontiguousarray(np.round(start[idx]), dtype=np.float64)
+            # every column's value, continuous ones too, so CBC need not solve an LP to complete the start
+            idx = np.arange(len(c))
+            sv = np.ascontiguousarray(np.where(integer, np.round(start), start), dtype=np.float64)
             ii = np.ascontiguousarray(idx, dtype=np.intc)
             cbclib.Cbc_setMIPStartI(model.solver._model, len(ii), ffi.cast("int *", ffi.from_buffer(ii)), ffi.cast("double *", ffi.from_buffer(sv)))
         else:
@@ -188,6 +242,13 @@ def _solve_inprocess(solver: str, maximize: bool, c: np.ndarray, A: sp.csr_matri
 
 
 def _child(conn: Any, args: tuple) -> None:  # pragma: no cover - runs in the forked child
+    # the library never prints: CLP writes its LP log to stdout even with verbose=0
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, 1)
+        os.dup2(devnull, 2)
+    except OSError:
+        pass
     try:
         res = _solve_inprocess(*args)
         conn.send(res)
@@ -220,7 +281,8 @@ def solve_mip(
     ``sense`` holds one of ``b"G"``, ``b"L"``, ``b"E"`` per row.  The whole
     call (building included) is held to ``time_limit`` seconds: the solver
     gets what is left after building, and with ``guard`` the solve runs in a
-    forked child killed one second past the deadline.
+    forked child that is asked to stop at 70 % of the limit and killed at
+    the limit.
     """
     solver = _check_solver(solver)
     if solver == "highs":
@@ -237,9 +299,13 @@ def solve_mip(
         return MipResult(None, float("nan"), float("nan"), "nosolution", 0.0, 0.0, ["no time left for the solver"])
     # the solver's own limit leaves room for building and reading back
     est_build = 2e-6 * (A.shape[0] + n_var) + 5e-8 * A.nnz
-    inner = max(0.05, min(time_limit * 0.97 - est_build, time_limit - est_build - 0.1))
-    args = (solver, maximize, np.asarray(c, dtype=np.float64), A, sense, rhs, lb, ub, integer, start, inner, rel_gap, threads, seed)
     use_fork = guard and "fork" in mp_.get_all_start_methods() and os.name == "posix"
+    if use_fork:
+        # CBC overruns its own limit (seen: +70 %): ask it to stop well before we kill it
+        inner = max(0.05, 0.7 * time_limit - est_build - 0.2)
+    else:
+        inner = max(0.05, min(time_limit * 0.97 - est_build, time_limit - est_build - 0.1))
+    args = (solver, maximize, np.asarray(c, dtype=np.float64), A, sense, rhs, lb, ub, integer, start, inner, rel_gap, threads, seed)
     if not use_fork:
         return _solve_inprocess(*args)
     t0 = time.perf_counter()
@@ -248,7 +314,7 @@ def solve_mip(
     proc = ctx.Process(target=_child, args=(child, args), daemon=True)
     proc.start()
     child.close()
-    deadline = t0 + time_limit + 1.0
+    deadline = t0 + time_limit
     res: MipResult | None = None
     try:
         while True:
@@ -274,7 +340,7 @@ def solve_mip(
         proc.join(5)
         secs = time.perf_counter() - t0
         why = "killed at the deadline" if secs >= time_limit else f"child exited with code {proc.exitcode}"
-        logger.warning("MIP %s after %.1f s (limit %.1f s)", why, secs, time_limit)
+        logger.info("MIP %s after %.1f s (limit %.1f s)", why, secs, time_limit)
         return MipResult(None, float("nan"), float("nan"), "killed", secs, 0.0, [f"{solver}: {why} after {secs:.1f} s (limit {time_limit:.1f} s); using the heuristic plan"])
     proc.join(5)
     if proc.is_alive():  # pragma: no cover

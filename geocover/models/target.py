@@ -102,6 +102,7 @@ def cover_target(
         raise ParameterError(f"share: must be a fraction in (0, 1] of the coverable people, got {share!r} (write 95 % as 0.95)", param="share")
     share = float(share)
     clock = Clock(time_limit)
+    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
     m = reach.shape[1]
     cost_all = np.asarray(reach.cost, dtype=np.float64) if use_cost else np.ones(m)
     params: dict[str, Any] = {"share": share, "use_cost": bool(use_cost), "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
@@ -118,7 +119,7 @@ def cover_target(
         log.append("no demand can be reached by any site")
         c0 = float(cost_all[kept].sum())
         return plan(kept, c0, c0, SolveStatus.EMPTY)
-    core = build_most_core(reach, resource="cost", reduce=reduce, optional_free=False, unit_cost=not use_cost)
+    core = build_most_core(reach, resource="cost", reduce=reduce, optional_free=False, unit_cost=not use_cost, deadline=clock.t0 + clock.limit / 3.0)
     clock.mark("reduce")
     params["reduction"] = core.stats
     coverable_w = core.coverable_weight
