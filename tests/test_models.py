@@ -31,7 +31,7 @@ FAST = settings(max_examples=25, deadline=None, suppress_health_check=[HealthChe
 def test_orlib_scp4_reaches_published_optimum(name: str) -> None:
     path = ORLIB / f"scp{name}.txt"
     if not path.exists():
-        pytest.skip(f"OR-Library instance not found at {path} (shared/ must sit beside the repository)")
+        pytest.skip(f"OR-Library instance not found at {path} (it ships in tests/data/orlib/)")
     mat, cost = read_orlib(path)
     plan = cover_all(Reach.from_sparse(mat, cost=cost), time_limit=30)
     assert plan.status == SolveStatus.OPTIMAL

@@ -10,7 +10,11 @@ from scipy.optimize import Bounds, LinearConstraint, milp
 
 from geocover.values import Reach, SiteRole
 
-ORLIB = Path(__file__).resolve().parents[2] / "shared" / "data" / "orlib"
+# the instances ship with the tests (MIT licence, see tests/data/orlib/README.md); a shared/ copy beside
+# the repository is the fallback
+ORLIB = Path(__file__).resolve().parent / "data" / "orlib"
+if not (ORLIB / "scp41.txt").exists():
+    ORLIB = Path(__file__).resolve().parents[2] / "shared" / "data" / "orlib"
 
 
 def read_orlib(path: Path) -> tuple[sp.csr_matrix, np.ndarray]:
