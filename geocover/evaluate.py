@@ -207,20 +207,23 @@ def audit(
     Parameters
     ----------
     plan : Plan or array of site indices
-        The chosen sites.  A :class:`Plan` carries nothing of the relation, so
-        pass the ``reach`` the plan was solved on.
+        The chosen sites.
     full_demand : Demand
         Demand before coarsening or merging.
-    reach : Reach
+    reach : Reach, optional
         The relation the plan was solved on (model demand x sites), with its
-        ``demand`` and ``sites``.
+        ``demand`` and ``sites``; by default the one the plan carries.
     reach_fn : callable, optional
         ``reach_fn(full_demand, chosen_sites) -> Reach`` for rules that need
         more than a limit (road travel time); planar and geodesic rules are
         rebuilt from the rule itself.
     """
+    if reach is None and isinstance(plan, Plan):
+        reach = plan.reach
     if reach is None or reach.sites is None or reach.demand is None:
-        raise InputError("audit: pass the reach the plan was solved on (with its demand and sites)")
+        raise InputError(
+            "audit: the plan carries no coverage relation with demand and sites; pass reach=, the Reach it was solved on"
+        )
     chosen = np.asarray(plan.sites if isinstance(plan, Plan) else plan, dtype=np.int64)
     sites = reach.sites
     from .values import Sites
@@ -296,4 +299,5 @@ def plan_from_sites(reach: Reach, chosen: Any, model: str = "given") -> Plan:
         covered_weight=covered,
         uncoverable_weight=reach.uncoverable_weight,
         total_weight=float(reach.weight.sum()),
+        reach=reach,
     )

@@ -457,7 +457,8 @@ class Plan:
 
     ``objective`` is in the model's own sense (sites or cost for LSCP, people
     for MCLP); ``bound`` is the best proven bound on it and ``gap`` the
-    relative distance between the two (0 when optimal).
+    relative distance between the two (0 when optimal).  ``reach`` is the
+    relation the plan was solved on (what :func:`geocover.audit` re-checks).
     """
 
     sites: np.ndarray
@@ -473,6 +474,7 @@ class Plan:
     total_weight: float
     params: Mapping[str, Any] = field(default_factory=dict)
     log: tuple[str, ...] = ()
+    reach: "Reach | None" = field(default=None, repr=False)  #: the relation the plan was made on
 
     def __post_init__(self) -> None:
         chosen = np.unique(np.asarray(self.sites, dtype=np.int64))

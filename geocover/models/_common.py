@@ -141,6 +141,7 @@ def make_plan(
         total_weight=float(reach.weight.sum()),
         params=params,
         log=tuple(log),
+        reach=reach,
     )
 
 
