@@ -394,16 +394,7 @@ def reach_planar(
 
 
 def _reach(mat: sp.csr_matrix, demand: Demand, sites: Sites, rule: ServiceRule) -> Reach:
-    return Reach(
-        mat,
-        weight=demand.weight,
-        cost=sites.cost,
-        role=sites.role,
-        rule=rule,
-        close_pairs=sites.close_pairs,
-        demand=demand,
-        sites=sites,
-    )
+    return Reach.from_matrix(mat, demand, sites, rule)
 
 
 # --------------------------------------------------------------------------- geodesic

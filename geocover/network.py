@@ -763,17 +763,7 @@ def reach_network(
         "offroad_speed_kmh": float(offroad_speed_kmh),
         "max_snap_m": float(max_snap_m),
     }
-    return Reach(
-        mat,
-        weight=demand.weight,
-        cost=sites.cost,
-        role=sites.role,
-        rule=ServiceRule(Metric.NETWORK, limit, "s"),
-        close_pairs=sites.close_pairs,
-        demand=demand,
-        sites=sites,
-        notes=notes,
-    )
+    return Reach.from_matrix(mat, demand, sites, ServiceRule(Metric.NETWORK, limit, "s"), notes=notes)
 
 
 # --------------------------------------------------------------------------- service areas

@@ -398,8 +398,13 @@ class Reach:
             shape=(len(demand), len(sites)),
         )
         mat.sum_duplicates()
+        return cls.from_matrix(mat, demand, sites, rule)
+
+    @classmethod
+    def from_matrix(cls, matrix: sp.csr_matrix, demand: Demand, sites: Sites, rule: ServiceRule, **extra: Any) -> "Reach":
+        """The relation from a demand x sites CSR matrix, with weights, costs and roles taken from the inputs."""
         return cls(
-            mat,
+            matrix,
             weight=demand.weight,
             cost=sites.cost,
             role=sites.role,
@@ -407,6 +412,7 @@ class Reach:
             close_pairs=sites.close_pairs,
             demand=demand,
             sites=sites,
+            **extra,
         )
 
     @property

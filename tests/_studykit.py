@@ -12,7 +12,7 @@ from typing import Any
 
 import numpy as np
 
-from conftest import CRS, write_grid
+from conftest import CRS, make_tiny, write_grid  # noqa: F401  (make_tiny is re-exported for the fault tests)
 
 X0, Y0 = 500000.0, 5000000.0
 
@@ -83,29 +83,3 @@ def copy_tree(src: Path, dst: Path) -> Path:
 def far_grid(folder: Path, dx: float = 50000.0) -> Path:
     """A population grid of 400 people, ``dx`` metres east of every site of the tiny study."""
     return write_grid(folder / "pop.tif", np.ones((20, 20), "float32"), X0 + dx, Y0, 100.0, crs=CRS)
-
-
-def make_tiny(folder: Path) -> dict[str, Path]:
-    """The layers of conftest's ``tiny`` fixture, for fixtures of wider scope (same data, same seed)."""
-    import geopandas as gpd
-    from shapely.geometry import Point, box
-
-    folder.mkdir(parents=True, exist_ok=True)
-    rng = np.random.default_rng(7)
-    pop = rng.integers(0, 30, size=(20, 20)).astype("float32")
-    pop[:3, :3] = -1.0
-    grid = write_grid(folder / "pop.tif", pop, X0, Y0, 100.0)
-    gpkg = folder / "tiny.gpkg"
-    gpd.GeoDataFrame(
-        {"parcel_id": ["P1", "P2", "P3", "P4"], "cost": [1.0, 1.0, 2.0, 1.0]},
-        geometry=[Point(X0 + 300, Y0 + 300), Point(X0 + 1700, Y0 + 300), Point(X0 + 1000, Y0 + 1000), Point(X0 + 1700, Y0 + 1700)],
-        crs=CRS,
-    ).to_file(gpkg, layer="candidates")
-    gpd.GeoDataFrame({"station_id": ["S1"], "status": ["kept"], "cost": [0.0]}, geometry=[Point(X0 + 300, Y0 + 1700)], crs=CRS).to_file(gpkg, layer="stations")
-    gpd.GeoDataFrame(
-        {"zone_class": ["A", "X"]},
-        geometry=[box(X0 + 900, Y0 + 900, X0 + 1100, Y0 + 1100), box(X0 + 1600, Y0 + 200, X0 + 1800, Y0 + 400)],
-        crs=CRS,
-    ).to_file(gpkg, layer="flood")
-    gpd.GeoDataFrame({"name": ["district"]}, geometry=[box(X0, Y0, X0 + 2000, Y0 + 2000)], crs=CRS).to_file(gpkg, layer="area")
-    return {"dir": folder, "grid": grid, "gpkg": gpkg}

@@ -27,18 +27,18 @@ def write_grid(path: Path, data: np.ndarray, x0: float, y0: float, cell: float, 
     return path
 
 
-@pytest.fixture
-def tiny(tmp_path: Path) -> dict[str, Path]:
-    """A 2 x 2 km district: a 20 x 20 grid of 100 m cells, four candidates, one station, one flood zone."""
+def make_tiny(folder: Path) -> dict[str, Path]:
+    """A 2 x 2 km district: a 20 x 20 grid of 100 m cells, four candidates, one station, two flood zones."""
     import geopandas as gpd
     from shapely.geometry import Point, box
 
     x0, y0 = 500000.0, 5000000.0
+    folder.mkdir(parents=True, exist_ok=True)
     rng = np.random.default_rng(7)
     pop = rng.integers(0, 30, size=(20, 20)).astype("float32")
     pop[:3, :3] = -1.0  # nodata corner
-    grid = write_grid(tmp_path / "pop.tif", pop, x0, y0, 100.0)
-    gpkg = tmp_path / "tiny.gpkg"
+    grid = write_grid(folder / "pop.tif", pop, x0, y0, 100.0)
+    gpkg = folder / "tiny.gpkg"
     gpd.GeoDataFrame(
         {"parcel_id": ["P1", "P2", "P3", "P4"], "cost": [1.0, 1.0, 2.0, 1.0]},
         geometry=[Point(x0 + 300, y0 + 300), Point(x0 + 1700, y0 + 300), Point(x0 + 1000, y0 + 1000), Point(x0 + 1700, y0 + 1700)],
@@ -53,4 +53,10 @@ def tiny(tmp_path: Path) -> dict[str, Path]:
         crs=CRS,
     ).to_file(gpkg, layer="flood")
     gpd.GeoDataFrame({"name": ["district"]}, geometry=[box(x0, y0, x0 + 2000, y0 + 2000)], crs=CRS).to_file(gpkg, layer="area")
-    return {"dir": tmp_path, "grid": grid, "gpkg": gpkg}
+    return {"dir": folder, "grid": grid, "gpkg": gpkg}
+
+
+@pytest.fixture
+def tiny(tmp_path: Path) -> dict[str, Path]:
+    """The tiny district of :func:`make_tiny`, in a fresh temp folder."""
+    return make_tiny(tmp_path)
