@@ -698,6 +698,19 @@ def summary_lines(outcome: StudyOutcome) -> list[str]:
         f"  solver:             {plan.solver}, status {plan.status.value}, objective {plan.objective:,.6g}, "
         f"bound {plan.bound:,.6g}, gap {100 * plan.gap:.2f} %",
     ]
+    if outcome.kind == ModelKind.COVER_TWICE.value:
+        twice = float(plan.total_weight and outcome.reach.weight[plan.coverage_count >= 2].sum())
+        lines.insert(3, f"  people served twice: {twice:,.0f} ({100 * twice / total:.1f} %)")
+    if outcome.curve is not None:
+        rows = tradeoff_rows(outcome.curve, outcome.reach)
+        points = ", ".join(f"{r['p']}: {100 * r['share']:.1f} %" for r in rows if "end point" not in str(r["status"]))
+        lines.append(f"  trade-off (new sites: share of coverable people): {points}")
+        ends = [r for r in rows if "end point" in str(r["status"])]
+        if ends:
+            lines.append(f"  everyone coverable is served with {ends[0]['p']} new sites (cover-all end point)")
+        marks = tradeoff_marks(outcome.curve)
+        if marks:
+            lines.append("  smallest number of new sites for " + ", ".join(f"{k}: {v[0]}" for k, v in marks.items()))
     hint = infeasible_hint(outcome)
     if hint:
         lines.append(f"  infeasible:         {hint}")

@@ -35,7 +35,8 @@ def _runner(kind: ModelKind, tradeoff_only: bool = False) -> Callable[[dict[str,
             sections["model"]["tradeoff"] = p["max_sites"]
             sections["model"]["sites"] = p["max_sites"]
         outcome = run_pipeline(sections, kind, run, title=p["title"])
-        outputs = write_outputs(outcome, p["out"], run, name=kind.value.replace("-", "_"))
+        name = "tradeoff" if tradeoff_only else kind.value.replace("-", "_")
+        outputs = write_outputs(outcome, p["out"], run, name=name)
         lines = summary_lines(outcome) + [f"  written to {p['out']}: " + ", ".join(o.name for o in outputs.values())]
         return ToolResult(kind.value, outputs, outcome.plan.summary(), lines, outcome)
 
