@@ -186,3 +186,10 @@ def test_coverage_target_of_zero_names_the_parameter(tiny):
 
 def test_solver_gap_of_one_is_refused(tiny):
     assert_clean_exit(_run(tiny, edit(STUDY, ("sites = 2", "sites = 2\ngap = 1"))), 1, "gap", "[0, 1)")
+
+
+def test_a_grid_with_no_people_says_so(tiny):
+    # every cell zero: a clear result with a warning, not a silent "0 of 0"
+    write_grid(tiny["grid"], np.zeros((20, 20), "float32"), X0, Y0, 100.0)
+    out = assert_clean_exit(_run(tiny), 0)
+    assert "holds no people" in out

@@ -100,7 +100,7 @@ MODEL = (
     Number("tradeoff", "also compute the trade-off curve up to this many sites (0 = no)", 0, minimum=0, integer=True),
     Duration("time_limit", "solver time limit per solve", 60.0),
     Share("gap", "relative optimality gap at which the solver may stop", 0.0001),
-    Number("threads", "solver threads", 1, minimum=1, integer=True),
+    Number("threads", "solver threads", 1, minimum=1, maximum=256, integer=True),
     Number("seed", "solver random seed", 0, minimum=0, integer=True),
     Choice("solver", "MIP solver", SolverName.CBC, choices=SolverName),
 )

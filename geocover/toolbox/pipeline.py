@@ -333,6 +333,11 @@ def _prepare(sections: Mapping[str, Mapping[str, Any]], run: RunContext) -> tupl
     with run.step("reading demand"):
         demand = load_demand(sections["demand"], crs, run)
     logger.info("demand: %d points, %.0f people, working CRS %s", len(demand), demand.total, demand.crs)
+    if demand.total <= 0:
+        logger.warning(
+            "demand: the demand source holds no people (%d points); check the band, its nodata value, the clip "
+            "layer and the population field", len(demand),
+        )
     with run.step("screening sites"):
         sites, record = load_sites(sections["sites"], demand.crs, run)
     logger.info("sites: %d usable (%s)", len(sites), record.counts())
@@ -373,6 +378,8 @@ def _finish(
         service_polygons = list(service_areas(reach, plan.sites, clip=study_area))
     exclusion_geoms = [g for geoms in record.zones.values() for g in geoms]
     notes = [str(n) for n in demand.summary.get("notes", [])] + [str(n) for n in record.notes]
+    if demand.total <= 0:
+        notes.insert(0, "The demand holds no people: check the band, its nodata value, the clip layer and the population field.")
     return StudyOutcome(
         title=title,
         kind=kind,
@@ -690,6 +697,8 @@ def summary_lines(outcome: StudyOutcome) -> list[str]:
     more = "" if len(plan.sites) <= 12 else f" and {len(plan.sites) - 12} more"
     lines = [
         f"{outcome.title}: {outcome.kind}, {outcome.reach.rule.describe()}",
+        *(["  warning:            the demand holds no people; check the band, nodata, clip and population field"]
+          if outcome.demand.total <= 0 else []),
         f"  sites chosen:       {len(plan.sites)} ({chosen}{more})",
         f"  people served:      {plan.covered_weight:,.0f} of {plan.total_weight:,.0f} ({100 * plan.covered_weight / total:.1f} %)",
         f"  people uncovered:   {plan.left_out_weight + plan.uncoverable_weight:,.0f} "
