@@ -38,7 +38,7 @@ def _interrupt_at(monkeypatch, module: str, name: str, after: int = 0) -> dict[s
 # where a Ctrl-C can land while a study writes its three files
 WRITE_POINTS = [
     ("geocover.report", "write_report"),  # after the GeoPackage is complete, before the report
-    ("geocover.toolbox.pipeline", "build_manifest"),  # after the GeoPackage and the report
+    ("geocover.toolbox.results", "build_manifest"),  # after the GeoPackage and the report
     ("geocover.layers", "write_layers"),  # before anything is written
 ]
 

@@ -17,7 +17,6 @@ import datetime as dt
 import json
 import math
 import shutil
-from pathlib import Path
 
 import pytest
 from hypothesis import HealthCheck, given, settings

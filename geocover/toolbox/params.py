@@ -193,7 +193,7 @@ class Metres(float):
 
     A bare number is read as metres; with geographic inputs that may have
     been meant in degrees, so the tools refuse it there (see
-    :func:`geocover.toolbox.pipeline.check_distance_units`).
+    :func:`geocover.toolbox.checks.check_distance_units`).
     """
 
     unitless: bool = False

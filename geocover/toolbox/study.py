@@ -28,7 +28,7 @@ from ..choices import ModelKind
 from ..errors import ParameterError, StudyFileError
 from . import options
 from .params import Context, OutputFolder, Param, Text, suggest
-from .pipeline import check_demand, check_distance_units, check_model, check_service, check_sites
+from .checks import check_demand, check_distance_units, check_model, check_service, check_sites
 from .tool import RunContext
 
 __all__ = ["SECTIONS", "TOP_LEVEL", "Study", "load_study", "run_study"]
@@ -135,7 +135,8 @@ def run_study(path: Path | str, out: Path | str | None = None, run: RunContext |
     Results are planning aids: check them against local codes, the
     authority having jurisdiction and licensed professional practice.
     """
-    from .pipeline import run_pipeline, write_outputs
+    from .pipeline import run_pipeline
+    from .results import write_outputs
 
     study = load_study(path, out)
     run = run or RunContext(params=Context(base_dir=study.path.resolve().parent, out_dir=study.out))

@@ -10,14 +10,15 @@ from ._common import params_of, split_sections
 
 
 def _validate(p: dict[str, Any]) -> list[Any]:
-    from ..pipeline import check_demand, check_distance_units, check_service, check_sites
+    from ..checks import check_demand, check_distance_units, check_service, check_sites
 
     problems = check_demand(p) + check_sites(p) + check_service(p)
     return problems or check_distance_units(p, p)
 
 
 def run(p: dict[str, Any], run: RunContext) -> ToolResult:
-    from ..pipeline import evaluate_given_sites, summary_lines, write_outputs
+    from ..pipeline import evaluate_given_sites
+    from ..results import summary_lines, write_outputs
 
     sections = split_sections(p, ("study", "demand", "sites", "service"))
     outcome = evaluate_given_sites(sections, run, title=p["title"])

@@ -10,7 +10,7 @@ from ._common import params_of, split_sections
 
 
 def _validate(p: dict[str, Any]) -> list[Any]:
-    from ..pipeline import check_demand, check_distance_units, check_service, check_sites
+    from ..checks import check_demand, check_distance_units, check_service, check_sites
 
     problems = check_demand(p) + check_sites(p) + check_service(p)
     return problems or check_distance_units(p, p)
@@ -19,7 +19,8 @@ def _validate(p: dict[str, Any]) -> list[Any]:
 def run(p: dict[str, Any], run: RunContext) -> ToolResult:
     from ...layers import write_layers
     from ...outputs import coverage_frames
-    from ..pipeline import build_reach, input_files, load_demand, load_sites
+    from ..pipeline import build_reach, load_demand, load_sites
+    from ..results import input_files
 
     sec = split_sections(p, ("study", "demand", "sites", "service"))
     with run.step("reading demand"):

@@ -19,7 +19,8 @@ def _validate(p: dict[str, Any]) -> list[ParameterError]:
 def run(p: dict[str, Any], run: RunContext) -> ToolResult:
     from ...layers import write_layers
     from ...outputs import demand_frame
-    from ..pipeline import input_files, load_demand
+    from ..pipeline import load_demand
+    from ..results import input_files
 
     with run.step("reading demand"):
         demand = load_demand(p, p.get("crs"), run)

@@ -18,7 +18,7 @@ _ALL_GROUPS = ("study", "demand", "sites", "service", "model")
 
 def _validator(kind: ModelKind) -> Callable[[dict[str, Any]], list[Any]]:
     def validate(p: dict[str, Any]) -> list[Any]:
-        from ..pipeline import check_demand, check_distance_units, check_model, check_service, check_sites
+        from ..checks import check_demand, check_distance_units, check_model, check_service, check_sites
 
         problems = check_demand(p) + check_sites(p) + check_service(p) + check_model(p, kind)
         return problems or check_distance_units(p, p)
@@ -28,7 +28,8 @@ def _validator(kind: ModelKind) -> Callable[[dict[str, Any]], list[Any]]:
 
 def _runner(kind: ModelKind, tradeoff_only: bool = False) -> Callable[[dict[str, Any], RunContext], ToolResult]:
     def run(p: dict[str, Any], run: RunContext) -> ToolResult:
-        from ..pipeline import run_pipeline, summary_lines, write_outputs
+        from ..pipeline import run_pipeline
+        from ..results import summary_lines, write_outputs
 
         sections = split_sections(p, _ALL_GROUPS)
         if tradeoff_only:

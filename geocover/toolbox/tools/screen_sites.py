@@ -13,7 +13,8 @@ def run(p: dict[str, Any], run: RunContext) -> ToolResult:
     from ...layers import write_layers
     from ...outputs import screened_sites_layer
     from ...outputs import sites_frame
-    from ..pipeline import input_files, load_sites
+    from ..pipeline import load_sites
+    from ..results import input_files
 
     with run.step("screening sites"):
         sites, record = load_sites(p, p.get("crs"), run)
@@ -30,7 +31,7 @@ def run(p: dict[str, Any], run: RunContext) -> ToolResult:
 
 
 def _validate(p: dict[str, Any]) -> list[Any]:
-    from ..pipeline import check_sites
+    from ..checks import check_sites
 
     return check_sites(p)
 

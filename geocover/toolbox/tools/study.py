@@ -21,7 +21,7 @@ class _StudyFile(Param):
 
 
 def run(p: dict[str, Any], run: RunContext) -> ToolResult:
-    from ..pipeline import summary_lines
+    from ..results import summary_lines
     from ..study import run_study
 
     outcome, outputs = run_study(p["file"], p.get("out"), run)
