@@ -122,19 +122,22 @@ def inputs_manifest(params: Mapping[str, Any]) -> list[dict[str, Any]]:
 
 
 def people_totals(outcome: StudyOutcome) -> dict[str, float]:
+    """People at each step: read, turned into demand, within reach of a site left after screening, covered."""
     plan = outcome.plan
-    screened_out = 0.0  # screening removes sites, not people
     return {
         "people_in": float(outcome.demand.summary.get("people_in", outcome.demand.total)),
         "people_as_demand": outcome.demand.total,
-        "people_after_screening": outcome.demand.total - screened_out,
+        "people_reachable_after_screening": outcome.demand.total - plan.uncoverable_weight,
         "people_covered": plan.covered_weight,
         "people_left_out": plan.left_out_weight,
         "people_unreachable": plan.uncoverable_weight,
     }
 
 
-def build_manifest(outcome: StudyOutcome, run: RunContext, outputs: Mapping[str, Path]) -> dict[str, Any]:
+def build_manifest(
+    outcome: StudyOutcome, run: RunContext, outputs: Mapping[str, Path], inputs: list[dict[str, Any]]
+) -> dict[str, Any]:
+    """The manifest; ``inputs`` from :func:`inputs_manifest` (hashed once per study)."""
     from ..versions import show_versions
 
     plan = outcome.plan
@@ -144,7 +147,7 @@ def build_manifest(outcome: StudyOutcome, run: RunContext, outputs: Mapping[str,
         "model": outcome.kind,
         "working_crs": outcome.demand.crs,
         "service_rule": outcome.reach.rule.describe(),
-        "inputs": inputs_manifest(outcome.params),
+        "inputs": inputs,
         "parameters": jsonable(outcome.params),
         "demand_summary": jsonable(outcome.demand.summary),
         "screening": outcome.record.counts(),
@@ -161,7 +164,7 @@ def build_manifest(outcome: StudyOutcome, run: RunContext, outputs: Mapping[str,
     }
 
 
-def report_data(outcome: StudyOutcome) -> Any:
+def report_data(outcome: StudyOutcome, inputs: list[dict[str, Any]]) -> Any:
     from ..evaluate import coverage_of, site_figures
     from ..outputs import demand_status
     from ..report import ReportData
@@ -219,7 +222,7 @@ def report_data(outcome: StudyOutcome) -> Any:
         audit=outcome.audit,
         screening=outcome.record.counts(),
         parameters={f"{sec}.{k}": jsonable(v) for sec, vals in outcome.params.items() for k, v in vals.items() if v not in (None, ())},
-        inputs=[{"file": Path(i["path"]).name, "bytes": i["bytes"], "sha256": i["sha256"][:16] + "..."} for i in inputs_manifest(outcome.params)],
+        inputs=[{"file": Path(i["path"]).name, "bytes": i["bytes"], "sha256": i["sha256"][:16] + "..."} for i in inputs],
         notes=([f"Infeasible: {infeasible_hint(outcome)}"] if infeasible_hint(outcome) else [])
         + list(outcome.notes) + list(plan.log),
         tradeoff=tradeoff_rows(outcome.curve, outcome.reach),
@@ -274,9 +277,11 @@ def write_outputs(outcome: StudyOutcome, out_dir: Path, run: RunContext, name: s
             with run.step("writing layers"):
                 layers = study_layers(outcome.reach, outcome.plan, outcome.record, outcome.service_polygons)
                 write_layers(staged["layers"], layers)
+            with run.step("hashing inputs"):
+                hashed = inputs_manifest(outcome.params)
             with run.step("writing report"):
-                write_report(staged["report"], report_data(outcome))
-            manifest = build_manifest(outcome, run, outputs)
+                write_report(staged["report"], report_data(outcome, hashed))
+            manifest = build_manifest(outcome, run, outputs, hashed)
             with atomic_output(staged["manifest"]) as tmp:
                 tmp.write_text(json.dumps(manifest, indent=2, sort_keys=False) + os.linesep, encoding="utf-8")
         except OSError as exc:  # disk full, no permission...: say where, and that nothing was replaced
