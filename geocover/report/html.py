@@ -131,12 +131,15 @@ def map_png(data: ReportData) -> str:
         w = np.asarray(data.demand_weight, dtype=float)
         positive = w > 0
         if positive.any():
-            marker = max(0.5, min(30.0, (data.demand_cell_m / 400.0) ** 2 * 4))
+            # a marker as wide as a demand cell at the map's scale (the axes are about 0.8 x 9 in = 520 pt wide)
+            xy = data.demand_xy
+            span = max(float(np.ptp(xy[:, 0])), float(np.ptp(xy[:, 1])) * 9 / 7, 1.0)
+            marker = float(np.clip((data.demand_cell_m * 520.0 / span) ** 2, 0.3, 60.0))
             sc = ax.scatter(
                 data.demand_xy[positive, 0], data.demand_xy[positive, 1], c=w[positive], s=marker, marker="s",
                 cmap=cmap, norm=LogNorm(vmin=max(w[positive].min(), 0.1), vmax=w[positive].max()), linewidths=0, zorder=1,
             )
-            cbar = fig.colorbar(sc, ax=ax, shrink=0.6, pad=0.02)
+            cbar = fig.colorbar(sc, ax=ax, shrink=0.45, pad=0.02, anchor=(0.0, 1.0))
             cbar.set_label("people per demand unit")
     if data.exclusions:
         _draw_polygons(ax, data.exclusions, facecolor=PALETTE["exclusion"], alpha=0.35, edgecolor=PALETTE["exclusion"], hatch="///", linewidth=0.4, zorder=2)
@@ -152,10 +155,10 @@ def map_png(data: ReportData) -> str:
             ax.scatter(xy[:, 0], xy[:, 1], s=size, color=PALETTE[key], linewidths=0, zorder=4)
             handles.append(Line2D([], [], marker="o", linestyle="", color=PALETTE[key], label=label))
     if data.existing_xy is not None and len(data.existing_xy):
-        ax.scatter(data.existing_xy[:, 0], data.existing_xy[:, 1], s=70, marker="s", color=PALETTE["existing"], edgecolor=PALETTE["ink"], zorder=6)
+        ax.scatter(data.existing_xy[:, 0], data.existing_xy[:, 1], s=150, marker="s", color=PALETTE["existing"], edgecolor=PALETTE["ink"], zorder=6)
         handles.append(Line2D([], [], marker="s", linestyle="", color=PALETTE["existing"], markeredgecolor=PALETTE["ink"], label="existing facilities"))
     if data.chosen_xy is not None and len(data.chosen_xy):
-        ax.scatter(data.chosen_xy[:, 0], data.chosen_xy[:, 1], s=90, marker="^", color=PALETTE["chosen"], edgecolor="white", zorder=7)
+        ax.scatter(data.chosen_xy[:, 0], data.chosen_xy[:, 1], s=70, marker="^", color=PALETTE["chosen"], edgecolor="white", zorder=7)
         handles.append(Line2D([], [], marker="^", linestyle="", color=PALETTE["chosen"], label="sites in the plan"))
     ax.set_aspect("equal")
     ax.autoscale_view()
@@ -170,7 +173,8 @@ def map_png(data: ReportData) -> str:
     ax.set_yticks([])
     ax.set_title(f"{data.title}\n{data.rule}; {data.crs}", fontsize=11, color=PALETTE["ink"])
     if handles:
-        ax.legend(handles=handles, loc="upper right", fontsize=8, framealpha=0.9)
+        # beside the map, under the colour bar, so that it hides nothing
+        ax.legend(handles=handles, loc="lower left", bbox_to_anchor=(1.02, 0.0), fontsize=8, framealpha=0.9)
     return _png(fig)
 
 

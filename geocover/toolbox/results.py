@@ -209,7 +209,8 @@ def report_data(outcome: StudyOutcome, inputs: list[dict[str, Any]]) -> Any:
         "solver": plan.solver,
         "solve seconds": plan.seconds,
     }
-    cell = float(np.median(demand.footprint) * math.sqrt(2.0) * 2) if len(demand) and demand.footprint.any() else 100.0
+    # side of a demand cell: the footprint is half its diagonal
+    cell = float(np.median(demand.footprint) * math.sqrt(2.0)) if len(demand) and demand.footprint.any() else 100.0
     return ReportData(
         title=outcome.title,
         crs=str(outcome.demand.crs),
