@@ -182,10 +182,10 @@ def _execute(ctx: click.Context, tool: Any, raw: dict[str, Any]) -> None:
     quiet = ctx.obj.get("quiet", 0) if ctx.obj else 0
     params_ctx = Context()
     # check first: every parameter problem at once, exit 2
-    _usage(tool.check, raw, params_ctx)
+    params = _usage(tool.check, raw, params_ctx)
     run = RunContext(params=params_ctx, progress=_progress_factory(sys.stderr.isatty() and not quiet))
     try:
-        result = tool.run(raw, run)
+        result = tool.run_fn(params, run)
     except StudyFileError as exc:
         raise UsageProblem(str(exc)) from None
     except KeyboardInterrupt:
