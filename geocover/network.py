@@ -786,27 +786,30 @@ def network_service_areas(reach: Reach, chosen: Any = None, limit_s: float | Non
     net: RoadNetwork | None = notes.get("network")
     if net is None:
         raise InputError("network_service_areas: the Reach carries no road network (make it with reach_network)")
+    from .areas import _as_clip, _chosen
+
     ssnap: Snap = notes["site_snap"]
     limit = float(reach.rule.limit if limit_s is None else limit_s)
-    m = len(ssnap.segment)
-    idx = np.arange(m) if chosen is None else np.asarray(chosen, dtype=np.int64).ravel()
-    if idx.size and (idx.min() < 0 or idx.max() >= m):
-        raise InputError(f"chosen: site indices must lie in 0..{m - 1}")
+    if not (math.isfinite(limit) and limit > 0):
+        raise ParameterError(f"limit_s: the travel-time limit must be a positive number of seconds, got {limit_s!r}", "limit_s")
+    if int(steps) < 1:
+        raise ParameterError(f"steps: must be 1 or more parts per reached road piece, got {steps!r}", "steps")
+    idx = _chosen(chosen, len(ssnap.segment))
     v_off = notes["offroad_speed_kmh"] / 3.6
     cap = notes["max_snap_m"]
-    from .areas import _as_clip
-
     area = _as_clip(clip)
     out = []
-    fr = np.linspace(0.0, 1.0, steps + 1)
-    for j in idx:
-        if not ssnap.snapped[j] or ssnap.distance[j] / v_off > limit:
+    fr = np.linspace(0.0, 1.0, int(steps) + 1)
+    drawn = idx[ssnap.snapped[idx] & (ssnap.distance[idx] / v_off <= limit)]
+    # one graph with a virtual source per drawn site (building it per site re-sorted every edge each time)
+    graph = _source_graph(net, ssnap, drawn) if len(drawn) else None
+    source = dict(zip(drawn.tolist(), range(net.n_nodes, net.n_nodes + len(drawn))))
+    for j in idx.tolist():
+        if j not in source:
             out.append(shapely.Polygon())
             continue
         budget = limit - ssnap.distance[j] / v_off
-        sel = np.array([j])
-        graph = _source_graph(net, ssnap, sel)
-        times = dijkstra(graph, directed=True, indices=net.n_nodes, limit=budget)[: net.n_nodes]
+        times = dijkstra(graph, directed=True, indices=source[j], limit=budget)[: net.n_nodes]
         # reach along each segment from u (fraction fu of it) and from v (fraction fv)
         pu = times[net.seg_u] + net.penalty(net.seg_u)
         pv = times[net.seg_v] + net.penalty(net.seg_v)
