@@ -363,8 +363,11 @@ def reach_planar(
     """
     _check_pair(demand, sites)
     limit = _check_limit(limit_m, "limit")
+    # the CRS the distances are measured in: the demand's, or the sites' when only they carry one
     if demand.crs is not None:
         require_projected(demand.crs, "demand CRS")
+    elif sites.crs is not None:
+        require_projected(sites.crs, "sites CRS")
     _same_crs(demand, sites)
     if int(chunk_rows) < 1:
         raise ParameterError(f"chunk_rows: must be 1 or more, got {chunk_rows}", "chunk_rows")

@@ -100,6 +100,9 @@ def test_geographic_crs_is_refused_with_the_fix():
     with pytest.raises(CRSError, match="projected") as err:
         reach_planar(d, s, 1000.0)
     assert "geodesic" in str(err.value)
+    # sites in degrees are refused too when only they carry a CRS
+    with pytest.raises(CRSError, match="sites CRS"):
+        reach_planar(Demand(np.array([[10.0, 50.0]]), [1.0]), s, 1000.0)
 
 
 def test_sites_in_another_crs_are_refused():
