@@ -62,13 +62,13 @@ _PAIRS_PER_CHUNK = 4_000_000  # rows per chunk are cut so that a chunk holds abo
 # --------------------------------------------------------------------------- checks
 
 
-def _check_limit(limit: Any, name: str = "limit") -> float:
+def _check_limit(limit: Any, name: str = "limit", unit: str = "metres") -> float:
     try:
         value = float(limit)
     except (TypeError, ValueError):
-        raise ParameterError(f"{name}: expected a positive number of metres, got {limit!r}", name) from None
+        raise ParameterError(f"{name}: expected a positive number of {unit}, got {limit!r}", name) from None
     if not (math.isfinite(value) and value > 0):
-        raise ParameterError(f"{name}: the service limit must be a positive, finite number, got {limit!r}", name)
+        raise ParameterError(f"{name}: the service limit must be a positive, finite number of {unit}, got {limit!r}", name)
     return value
 
 

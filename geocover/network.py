@@ -700,25 +700,20 @@ def reach_network(
         ``components`` (how many parts, demand weight and sites on each),
         ``network`` (the :class:`RoadNetwork`) and the snaps.
     """
-    if not isinstance(demand, Demand) or not isinstance(sites, Sites):
-        raise InputError("reach_network: expected a geocover Demand and Sites")
-    try:
-        limit = float(limit_s)
-    except (TypeError, ValueError):
-        raise ParameterError(f"limit: expected a positive number of seconds, got {limit_s!r}", "limit") from None
-    if not (math.isfinite(limit) and limit > 0):
-        raise ParameterError(f"limit: the travel-time limit must be a positive number of seconds, got {limit_s!r}", "limit")
+    from .coverage import _check_limit, _check_pair, _same_crs
+
+    _check_pair(demand, sites)
+    limit = _check_limit(limit_s, "limit", "seconds")
     for name, value in (("offroad_speed_kmh", offroad_speed_kmh), ("max_snap_m", max_snap_m)):
-        if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+        if isinstance(value, (bool, np.bool_)) or not (
+            isinstance(value, (int, float, np.integer, np.floating)) and math.isfinite(value) and value > 0
+        ):
             raise ParameterError(f"{name}: must be a positive number, got {value!r}", name)
     crs = demand.crs if demand.crs is not None else sites.crs
     if crs is None:
         raise CRSError("reach_network: the demand has no CRS, so the roads cannot be matched to it; give it the working CRS")
     require_projected(crs, "demand CRS")
-    if sites.crs is not None and demand.crs is not None:
-        from .coverage import _same_crs
-
-        _same_crs(demand, sites)
+    _same_crs(demand, sites)
     frame = _resolve_roads(roads, crs)
     net = build_network(
         frame,

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from shapely import LineString
 
-from geocover.errors import CRSError, LayerError, ParameterError
+from geocover.errors import CRSError, InputError, LayerError, ParameterError
 from geocover.network import build_network, reach_network
 from geocover.values import Demand, Metric, Sites
 
@@ -255,6 +255,9 @@ def test_bad_inputs_name_the_field_or_parameter():
     assert err.value.param == "limit"
     with pytest.raises(ParameterError):
         reach_network(d, s, good, 10.0)  # neither speed_field nor class_field
+    with pytest.raises(InputError, match="sites: expected geocover Sites"):
+        reach_network(d, s.xy, good, 10.0, speed_field="kmh")
+    assert reach_network(d, s, good, 200.0, speed_field="kmh", max_snap_m=np.int64(5)).matrix.nnz == 1  # numpy numbers are numbers
     with pytest.raises(CRSError):
         reach_network(Demand(d.xy, [1.0], crs="EPSG:4326"), Sites(s.xy, crs="EPSG:4326"), good, 10.0, speed_field="kmh")
     points = gpd.GeoDataFrame({"kmh": [1.0]}, geometry=gpd.points_from_xy([0.0], [0.0]), crs=UTM)
