@@ -388,7 +388,7 @@ def reach_planar(
     rule = ServiceRule(Metric.PLANAR, limit, "m")
     n, m = len(demand), len(sites)
     if n == 0 or m == 0:
-        return _reach(_empty_csr(n, m), demand, sites, rule)
+        return Reach.from_matrix(_empty_csr(n, m), demand, sites, rule)
     est = estimate_pairs(demand, sites, limit, sample=min(n, 5_000))
     check_memory(est, memory_budget_gb, n, "planar coverage")
     per_row = max(est / n, 1.0)
@@ -405,10 +405,6 @@ def reach_planar(
     else:
         with ThreadPoolExecutor(max_workers=threads) as pool:
             mat = _assemble(pool.map(run, bounds), bounds, n, m, est)
-    return _reach(mat, demand, sites, rule)
-
-
-def _reach(mat: sp.csr_matrix, demand: Demand, sites: Sites, rule: ServiceRule) -> Reach:
     return Reach.from_matrix(mat, demand, sites, rule)
 
 
@@ -535,7 +531,7 @@ def reach_geodesic(
     rule = ServiceRule(Metric.GEODESIC, limit, "m")
     n, m = len(demand), len(sites)
     if n == 0 or m == 0:
-        return _reach(_empty_csr(n, m), demand, sites, rule)
+        return Reach.from_matrix(_empty_csr(n, m), demand, sites, rule)
     dlon, dlat = _to_lonlat(demand.xy, crs, "demand")
     slon, slat = _to_lonlat(sites.xy, crs, "sites")
     site_tree = cKDTree(_ecef(slon, slat, geod))
@@ -556,7 +552,7 @@ def reach_geodesic(
         cols_parts.append(j[keep])
         vals_parts.append(s12[keep])
     if not rows_parts:
-        return _reach(_empty_csr(n, m), demand, sites, rule)
+        return Reach.from_matrix(_empty_csr(n, m), demand, sites, rule)
     return Reach.from_pairs(
         np.concatenate(rows_parts), np.concatenate(cols_parts), np.concatenate(vals_parts), demand, sites, rule
     )
