@@ -440,20 +440,35 @@ def _min_csr(tail: np.ndarray, head: np.ndarray, weight: np.ndarray, n: int) -> 
 # --------------------------------------------------------------------------- travel times
 
 
-def _legs(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Ends of each snapped point's segment and the time from each end to the point (inf if not allowed)."""
+def _at_node(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> np.ndarray:
+    """The node each snapped point stands on (t = 0 or 1 on its segment), -1 when it is inside a segment."""
+    seg, t = snap.segment[idx], snap.t[idx]
+    return np.where(t == 0.0, net.seg_u[seg], np.where(t == 1.0, net.seg_v[seg], -1))
+
+
+def _legs(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Ends of each snapped point's segment, the time from each end to the point (inf if not allowed)
+    and the intersection penalty included in that time (to be waived when the route starts at that end)."""
     seg = snap.segment[idx]
     u, v = net.seg_u[seg], net.seg_v[seg]
     full = net.seg_time[seg]
     t = snap.t[idx]
-    # a point snapped onto an end node (t = 0 or 1) is at that node, whatever the segment's direction
-    from_u = np.where(net.forward[seg] | (t == 0.0), t * full + net.penalty(u), np.inf)
-    from_v = np.where(net.backward[seg] | (t == 1.0), (1.0 - t) * full + net.penalty(v), np.inf)
-    return u, v, from_u, from_v
+    # a point snapped onto an end node (t = 0 or 1) is at that node, whatever the segment's direction,
+    # and ending there is not passing through it: no penalty
+    pen_u = np.where(t == 0.0, 0.0, net.penalty(u))
+    pen_v = np.where(t == 1.0, 0.0, net.penalty(v))
+    from_u = np.where(net.forward[seg] | (t == 0.0), t * full + pen_u, np.inf)
+    from_v = np.where(net.backward[seg] | (t == 1.0), (1.0 - t) * full + pen_v, np.inf)
+    return u, v, from_u, from_v, pen_u, pen_v
 
 
 def _source_graph(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> sp.csr_matrix:
-    """The road graph plus one virtual source node per snapped site (no edges into it)."""
+    """The road graph plus one virtual source node per snapped site (no edges into it).
+
+    A site standing on a node leaves it without that node's intersection penalty
+    (starting at a node is not passing through it): its source also gets the
+    node's out-edges at their time without the penalty.
+    """
     n = net.n_nodes
     seg = snap.segment[idx]
     t = snap.t[idx]
@@ -463,9 +478,19 @@ def _source_graph(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> sp.csr_matri
     to_u = net.backward[seg] | (t == 0.0)  # leaving the site towards u means driving v -> u (or standing on u)
     to_v = net.forward[seg] | (t == 1.0)
     g = net.graph.tocoo()
-    tail = np.concatenate([g.row, src[to_u], src[to_v]])
-    head = np.concatenate([g.col, net.seg_u[seg][to_u], net.seg_v[seg][to_v]])
-    weight = np.concatenate([g.data, (t * full)[to_u], ((1.0 - t) * full)[to_v]])
+    # out-edges of the nodes the sites stand on, re-tailed at the site's source, penalty taken off
+    node = _at_node(net, snap, idx)
+    on = np.flatnonzero(node >= 0)
+    ptr = net.graph.indptr
+    cnt = ptr[node[on] + 1] - ptr[node[on]]
+    first = np.cumsum(cnt) - cnt
+    pos = np.repeat(ptr[node[on]] - first, cnt) + np.arange(int(cnt.sum()))
+    out_tail = np.repeat(src[on], cnt)
+    out_head = net.graph.indices[pos]
+    out_w = net.graph.data[pos] - np.repeat(net.penalty(node[on]), cnt)
+    tail = np.concatenate([g.row, src[to_u], src[to_v], out_tail])
+    head = np.concatenate([g.col, net.seg_u[seg][to_u], net.seg_v[seg][to_v], out_head])
+    weight = np.concatenate([g.data, (t * full)[to_u], ((1.0 - t) * full)[to_v], out_w])
     return _min_csr(tail.astype(np.int64), head.astype(np.int64), weight, n + k)
 
 
@@ -487,7 +512,8 @@ def _network_pairs(
     empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
     if len(d_idx) == 0 or len(s_idx) == 0:
         return empty, empty
-    du, dv, d_from_u, d_from_v = _legs(net, dsnap, d_idx)
+    du, dv, d_from_u, d_from_v, d_pen_u, d_pen_v = _legs(net, dsnap, d_idx)
+    s_node = _at_node(net, ssnap, s_idx)  # a route from a site standing on a node does not pay its penalty
     # node -> demand points whose segment starts there (u-list) / ends there (v-list)
     u_order = np.argsort(du, kind="stable")
     u_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
@@ -520,12 +546,16 @@ def _network_pairs(
         if len(r) == 0:
             continue
         t_node = times[r, node]
+        start = s_node[a:b]
         # demand whose segment starts at a reached node: the better of its two ends
         r1, d1, cnt = expand(r, node, u_ptr, u_order)
-        t1 = np.minimum(np.repeat(t_node, cnt) + d_from_u[d1], times[r1, dv[d1]] + d_from_v[d1])
+        t1 = np.minimum(
+            np.repeat(t_node, cnt) + d_from_u[d1] - np.where(du[d1] == start[r1], d_pen_u[d1], 0.0),
+            times[r1, dv[d1]] + d_from_v[d1] - np.where(dv[d1] == start[r1], d_pen_v[d1], 0.0),
+        )
         # demand whose segment ends at a reached node while its start is not reached: through the end only
         r2, d2, cnt = expand(r, node, v_ptr, v_order)
-        t2 = np.repeat(t_node, cnt) + d_from_v[d2]
+        t2 = np.repeat(t_node, cnt) + d_from_v[d2] - np.where(dv[d2] == start[r2], d_pen_v[d2], 0.0)
         fresh = ~(times[r2, du[d2]] <= bud[r2])
         r2, d2, t2 = r2[fresh], d2[fresh], t2[fresh]
         rr = np.concatenate([r1, r2])
@@ -806,8 +836,9 @@ def network_service_areas(reach: Reach, chosen: Any = None, limit_s: float | Non
         budget = limit - ssnap.distance[j] / v_off
         times = dijkstra(graph, directed=True, indices=source[j], limit=budget)[: net.n_nodes]
         # reach along each segment from u (fraction fu of it) and from v (fraction fv)
-        pu = times[net.seg_u] + net.penalty(net.seg_u)
-        pv = times[net.seg_v] + net.penalty(net.seg_v)
+        start = _at_node(net, ssnap, np.array([j]))[0]  # no penalty for leaving the node the site stands on
+        pu = times[net.seg_u] + np.where(net.seg_u == start, 0.0, net.penalty(net.seg_u))
+        pv = times[net.seg_v] + np.where(net.seg_v == start, 0.0, net.penalty(net.seg_v))
         fu = np.where(net.forward, np.clip((budget - pu) / net.seg_time, 0.0, 1.0), 0.0)
         fv = np.where(net.backward, np.clip((budget - pv) / net.seg_time, 0.0, 1.0), 0.0)
         fu[~np.isfinite(fu)] = 0.0
