@@ -320,6 +320,16 @@ def _split_at_crossings(lines: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return noded, owner
 
 
+def _check_penalty(turn_penalty_s: Any) -> float:
+    try:
+        penalty = float(turn_penalty_s)
+    except (TypeError, ValueError):
+        penalty = math.nan
+    if not (math.isfinite(penalty) and penalty >= 0):
+        raise ParameterError(f"turn_penalty_s: must be zero or more seconds, got {turn_penalty_s!r}", "turn_penalty_s")
+    return penalty
+
+
 def build_network(
     roads: "gpd.GeoDataFrame",
     *,
@@ -343,9 +353,7 @@ def build_network(
 
     if roads.crs is not None and roads.crs.is_geographic:
         raise CRSError("roads: the layer is in a geographic CRS; reproject it to the projected working CRS first")
-    penalty = float(turn_penalty_s)
-    if not (math.isfinite(penalty) and penalty >= 0):
-        raise ParameterError(f"turn_penalty_s: must be zero or more seconds, got {turn_penalty_s!r}", "turn_penalty_s")
+    penalty = _check_penalty(turn_penalty_s)
     geoms = np.asarray(roads.geometry.values, dtype=object)
     present = ~shapely.is_missing(geoms)
     present[present] = ~shapely.is_empty(geoms[present])
@@ -744,6 +752,7 @@ def reach_network(
         raise CRSError("reach_network: the demand has no CRS, so the roads cannot be matched to it; give it the working CRS")
     require_projected(crs, "demand CRS")
     _same_crs(demand, sites)
+    _check_penalty(turn_penalty_s)  # before the road layer is read
     frame = _resolve_roads(roads, crs)
     net = build_network(
         frame,

@@ -295,6 +295,9 @@ def test_bad_inputs_name_the_field_or_parameter():
     assert err.value.param == "limit"
     with pytest.raises(ParameterError):
         reach_network(d, s, good, 10.0)  # neither speed_field nor class_field
+    with pytest.raises(ParameterError) as err:
+        reach_network(d, s, "no/such/roads.gpkg", 100.0, speed_field="kmh", turn_penalty_s="long")  # before any read
+    assert err.value.param == "turn_penalty_s"
     with pytest.raises(InputError, match="sites: expected geocover Sites"):
         reach_network(d, s.xy, good, 10.0, speed_field="kmh")
     assert reach_network(d, s, good, 200.0, speed_field="kmh", max_snap_m=np.int64(5)).matrix.nnz == 1  # numpy numbers are numbers
