@@ -101,7 +101,7 @@ def _geodesic_circles(sites: Sites, chosen: np.ndarray, radius: float, n_vertice
 
     crs = sites.crs
     geod = _geod_for(crs, None)
-    lon, lat = _to_lonlat(sites.xy[chosen], crs)
+    lon, lat = _to_lonlat(sites.xy[chosen], crs, "sites")
     az = np.linspace(0.0, 360.0, n_vertices, endpoint=False)
     k = len(chosen)
     lon2, lat2, _ = geod.fwd(

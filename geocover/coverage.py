@@ -62,14 +62,25 @@ _PAIRS_PER_CHUNK = 4_000_000  # rows per chunk are cut so that a chunk holds abo
 # --------------------------------------------------------------------------- checks
 
 
-def _check_limit(limit: Any, name: str = "limit") -> float:
+def _check_limit(limit: Any, name: str = "limit", unit: str = "metres") -> float:
     try:
         value = float(limit)
     except (TypeError, ValueError):
-        raise ParameterError(f"{name}: expected a positive number of metres, got {limit!r}", name) from None
+        raise ParameterError(f"{name}: expected a positive number of {unit}, got {limit!r}", name) from None
     if not (math.isfinite(value) and value > 0):
-        raise ParameterError(f"{name}: the service limit must be a positive, finite number, got {limit!r}", name)
+        raise ParameterError(f"{name}: the service limit must be a positive, finite number of {unit}, got {limit!r}", name)
     return value
+
+
+def _check_count(value: Any, name: str) -> int:
+    """A whole number of 1 or more (rows per chunk, threads)."""
+    try:
+        count = int(value)
+    except (TypeError, ValueError, OverflowError):
+        count = 0
+    if count < 1:
+        raise ParameterError(f"{name}: must be a whole number, 1 or more, got {value!r}", name)
+    return count
 
 
 def _check_pair(demand: Demand, sites: Sites) -> None:
@@ -293,7 +304,10 @@ def check_memory(pairs: int, budget_gb: float | None, n_demand: int, what: str =
     """
     if budget_gb is None:
         return
-    budget = float(budget_gb)
+    try:
+        budget = float(budget_gb)
+    except (TypeError, ValueError):
+        budget = math.nan
     if not (math.isfinite(budget) and budget > 0):
         raise ParameterError(f"memory_budget_gb: must be a positive number of GB, got {budget_gb!r}", "memory_budget_gb")
     need_gb = pairs * BYTES_PER_PAIR / 1e9
@@ -363,21 +377,22 @@ def reach_planar(
     """
     _check_pair(demand, sites)
     limit = _check_limit(limit_m, "limit")
+    # the CRS the distances are measured in: the demand's, or the sites' when only they carry one
     if demand.crs is not None:
         require_projected(demand.crs, "demand CRS")
+    elif sites.crs is not None:
+        require_projected(sites.crs, "sites CRS")
     _same_crs(demand, sites)
-    if int(chunk_rows) < 1:
-        raise ParameterError(f"chunk_rows: must be 1 or more, got {chunk_rows}", "chunk_rows")
-    if int(threads) < 1:
-        raise ParameterError(f"threads: must be 1 or more, got {threads}", "threads")
+    chunk_rows = _check_count(chunk_rows, "chunk_rows")
+    threads = _check_count(threads, "threads")
     rule = ServiceRule(Metric.PLANAR, limit, "m")
     n, m = len(demand), len(sites)
     if n == 0 or m == 0:
-        return _reach(_empty_csr(n, m), demand, sites, rule)
+        return Reach.from_matrix(_empty_csr(n, m), demand, sites, rule)
     est = estimate_pairs(demand, sites, limit, sample=min(n, 5_000))
     check_memory(est, memory_budget_gb, n, "planar coverage")
     per_row = max(est / n, 1.0)
-    rows = int(max(256, min(int(chunk_rows), _PAIRS_PER_CHUNK / per_row)))
+    rows = int(max(256, min(chunk_rows, _PAIRS_PER_CHUNK / per_row)))
     bounds = _chunk_bounds(n, rows)
     logger.debug("planar coverage: %d x %d, limit %g m, ~%d pairs, %d chunk(s)", n, m, limit, est, len(bounds))
     dxy, sxy = demand.xy, sites.xy
@@ -385,15 +400,11 @@ def reach_planar(
     def run(ab: tuple[int, int]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         return _planar_chunk(dxy[ab[0] : ab[1]], sxy, limit)
 
-    if int(threads) == 1 or len(bounds) == 1:
+    if threads == 1 or len(bounds) == 1:
         mat = _assemble((run(ab) for ab in bounds), bounds, n, m, est)
     else:
-        with ThreadPoolExecutor(max_workers=int(threads)) as pool:
+        with ThreadPoolExecutor(max_workers=threads) as pool:
             mat = _assemble(pool.map(run, bounds), bounds, n, m, est)
-    return _reach(mat, demand, sites, rule)
-
-
-def _reach(mat: sp.csr_matrix, demand: Demand, sites: Sites, rule: ServiceRule) -> Reach:
     return Reach.from_matrix(mat, demand, sites, rule)
 
 
@@ -514,21 +525,20 @@ def reach_geodesic(
     _check_pair(demand, sites)
     limit = _check_limit(limit_m, "limit")
     _same_crs(demand, sites)
-    if int(chunk_rows) < 1:
-        raise ParameterError(f"chunk_rows: must be 1 or more, got {chunk_rows}", "chunk_rows")
+    chunk_rows = _check_count(chunk_rows, "chunk_rows")
     crs = demand.crs if demand.crs is not None else sites.crs
     geod = _geod_for(crs, ellipsoid)
     rule = ServiceRule(Metric.GEODESIC, limit, "m")
     n, m = len(demand), len(sites)
     if n == 0 or m == 0:
-        return _reach(_empty_csr(n, m), demand, sites, rule)
+        return Reach.from_matrix(_empty_csr(n, m), demand, sites, rule)
     dlon, dlat = _to_lonlat(demand.xy, crs, "demand")
     slon, slat = _to_lonlat(sites.xy, crs, "sites")
     site_tree = cKDTree(_ecef(slon, slat, geod))
     # chord <= geodesic; pad for the rounding of the earth-centred coordinates (~1e-9 m at 6.4e6 m)
     radius = limit * (1.0 + 1e-12) + 1e-6
     rows_parts, cols_parts, vals_parts = [], [], []
-    for a, b in _chunk_bounds(n, int(chunk_rows)):
+    for a, b in _chunk_bounds(n, chunk_rows):
         chunk_tree = cKDTree(_ecef(dlon[a:b], dlat[a:b], geod))
         cand = chunk_tree.sparse_distance_matrix(site_tree, radius, output_type="ndarray")
         if len(cand) == 0:
@@ -542,7 +552,7 @@ def reach_geodesic(
         cols_parts.append(j[keep])
         vals_parts.append(s12[keep])
     if not rows_parts:
-        return _reach(_empty_csr(n, m), demand, sites, rule)
+        return Reach.from_matrix(_empty_csr(n, m), demand, sites, rule)
     return Reach.from_pairs(
         np.concatenate(rows_parts), np.concatenate(cols_parts), np.concatenate(vals_parts), demand, sites, rule
     )

@@ -320,6 +320,16 @@ def _split_at_crossings(lines: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return noded, owner
 
 
+def _check_penalty(turn_penalty_s: Any) -> float:
+    try:
+        penalty = float(turn_penalty_s)
+    except (TypeError, ValueError):
+        penalty = math.nan
+    if not (math.isfinite(penalty) and penalty >= 0):
+        raise ParameterError(f"turn_penalty_s: must be zero or more seconds, got {turn_penalty_s!r}", "turn_penalty_s")
+    return penalty
+
+
 def build_network(
     roads: "gpd.GeoDataFrame",
     *,
@@ -343,9 +353,7 @@ def build_network(
 
     if roads.crs is not None and roads.crs.is_geographic:
         raise CRSError("roads: the layer is in a geographic CRS; reproject it to the projected working CRS first")
-    penalty = float(turn_penalty_s)
-    if not (math.isfinite(penalty) and penalty >= 0):
-        raise ParameterError(f"turn_penalty_s: must be zero or more seconds, got {turn_penalty_s!r}", "turn_penalty_s")
+    penalty = _check_penalty(turn_penalty_s)
     geoms = np.asarray(roads.geometry.values, dtype=object)
     present = ~shapely.is_missing(geoms)
     present[present] = ~shapely.is_empty(geoms[present])
@@ -440,20 +448,35 @@ def _min_csr(tail: np.ndarray, head: np.ndarray, weight: np.ndarray, n: int) -> 
 # --------------------------------------------------------------------------- travel times
 
 
-def _legs(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Ends of each snapped point's segment and the time from each end to the point (inf if not allowed)."""
+def _at_node(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> np.ndarray:
+    """The node each snapped point stands on (t = 0 or 1 on its segment), -1 when it is inside a segment."""
+    seg, t = snap.segment[idx], snap.t[idx]
+    return np.where(t == 0.0, net.seg_u[seg], np.where(t == 1.0, net.seg_v[seg], -1))
+
+
+def _legs(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Ends of each snapped point's segment, the time from each end to the point (inf if not allowed)
+    and the intersection penalty included in that time (to be waived when the route starts at that end)."""
     seg = snap.segment[idx]
     u, v = net.seg_u[seg], net.seg_v[seg]
     full = net.seg_time[seg]
     t = snap.t[idx]
-    # a point snapped onto an end node (t = 0 or 1) is at that node, whatever the segment's direction
-    from_u = np.where(net.forward[seg] | (t == 0.0), t * full + net.penalty(u), np.inf)
-    from_v = np.where(net.backward[seg] | (t == 1.0), (1.0 - t) * full + net.penalty(v), np.inf)
-    return u, v, from_u, from_v
+    # a point snapped onto an end node (t = 0 or 1) is at that node, whatever the segment's direction,
+    # and ending there is not passing through it: no penalty
+    pen_u = np.where(t == 0.0, 0.0, net.penalty(u))
+    pen_v = np.where(t == 1.0, 0.0, net.penalty(v))
+    from_u = np.where(net.forward[seg] | (t == 0.0), t * full + pen_u, np.inf)
+    from_v = np.where(net.backward[seg] | (t == 1.0), (1.0 - t) * full + pen_v, np.inf)
+    return u, v, from_u, from_v, pen_u, pen_v
 
 
 def _source_graph(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> sp.csr_matrix:
-    """The road graph plus one virtual source node per snapped site (no edges into it)."""
+    """The road graph plus one virtual source node per snapped site (no edges into it).
+
+    A site standing on a node leaves it without that node's intersection penalty
+    (starting at a node is not passing through it): its source also gets the
+    node's out-edges at their time without the penalty.
+    """
     n = net.n_nodes
     seg = snap.segment[idx]
     t = snap.t[idx]
@@ -463,9 +486,19 @@ def _source_graph(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> sp.csr_matri
     to_u = net.backward[seg] | (t == 0.0)  # leaving the site towards u means driving v -> u (or standing on u)
     to_v = net.forward[seg] | (t == 1.0)
     g = net.graph.tocoo()
-    tail = np.concatenate([g.row, src[to_u], src[to_v]])
-    head = np.concatenate([g.col, net.seg_u[seg][to_u], net.seg_v[seg][to_v]])
-    weight = np.concatenate([g.data, (t * full)[to_u], ((1.0 - t) * full)[to_v]])
+    # out-edges of the nodes the sites stand on, re-tailed at the site's source, penalty taken off
+    node = _at_node(net, snap, idx)
+    on = np.flatnonzero(node >= 0)
+    ptr = net.graph.indptr
+    cnt = ptr[node[on] + 1] - ptr[node[on]]
+    first = np.cumsum(cnt) - cnt
+    pos = np.repeat(ptr[node[on]] - first, cnt) + np.arange(int(cnt.sum()))
+    out_tail = np.repeat(src[on], cnt)
+    out_head = net.graph.indices[pos]
+    out_w = net.graph.data[pos] - np.repeat(net.penalty(node[on]), cnt)
+    tail = np.concatenate([g.row, src[to_u], src[to_v], out_tail])
+    head = np.concatenate([g.col, net.seg_u[seg][to_u], net.seg_v[seg][to_v], out_head])
+    weight = np.concatenate([g.data, (t * full)[to_u], ((1.0 - t) * full)[to_v], out_w])
     return _min_csr(tail.astype(np.int64), head.astype(np.int64), weight, n + k)
 
 
@@ -487,7 +520,8 @@ def _network_pairs(
     empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
     if len(d_idx) == 0 or len(s_idx) == 0:
         return empty, empty
-    du, dv, d_from_u, d_from_v = _legs(net, dsnap, d_idx)
+    du, dv, d_from_u, d_from_v, d_pen_u, d_pen_v = _legs(net, dsnap, d_idx)
+    s_node = _at_node(net, ssnap, s_idx)  # a route from a site standing on a node does not pay its penalty
     # node -> demand points whose segment starts there (u-list) / ends there (v-list)
     u_order = np.argsort(du, kind="stable")
     u_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
@@ -520,12 +554,16 @@ def _network_pairs(
         if len(r) == 0:
             continue
         t_node = times[r, node]
+        start = s_node[a:b]
         # demand whose segment starts at a reached node: the better of its two ends
         r1, d1, cnt = expand(r, node, u_ptr, u_order)
-        t1 = np.minimum(np.repeat(t_node, cnt) + d_from_u[d1], times[r1, dv[d1]] + d_from_v[d1])
+        t1 = np.minimum(
+            np.repeat(t_node, cnt) + d_from_u[d1] - np.where(du[d1] == start[r1], d_pen_u[d1], 0.0),
+            times[r1, dv[d1]] + d_from_v[d1] - np.where(dv[d1] == start[r1], d_pen_v[d1], 0.0),
+        )
         # demand whose segment ends at a reached node while its start is not reached: through the end only
         r2, d2, cnt = expand(r, node, v_ptr, v_order)
-        t2 = np.repeat(t_node, cnt) + d_from_v[d2]
+        t2 = np.repeat(t_node, cnt) + d_from_v[d2] - np.where(dv[d2] == start[r2], d_pen_v[d2], 0.0)
         fresh = ~(times[r2, du[d2]] <= bud[r2])
         r2, d2, t2 = r2[fresh], d2[fresh], t2[fresh]
         rr = np.concatenate([r1, r2])
@@ -700,25 +738,21 @@ def reach_network(
         ``components`` (how many parts, demand weight and sites on each),
         ``network`` (the :class:`RoadNetwork`) and the snaps.
     """
-    if not isinstance(demand, Demand) or not isinstance(sites, Sites):
-        raise InputError("reach_network: expected a geocover Demand and Sites")
-    try:
-        limit = float(limit_s)
-    except (TypeError, ValueError):
-        raise ParameterError(f"limit: expected a positive number of seconds, got {limit_s!r}", "limit") from None
-    if not (math.isfinite(limit) and limit > 0):
-        raise ParameterError(f"limit: the travel-time limit must be a positive number of seconds, got {limit_s!r}", "limit")
+    from .coverage import _check_limit, _check_pair, _same_crs
+
+    _check_pair(demand, sites)
+    limit = _check_limit(limit_s, "limit", "seconds")
     for name, value in (("offroad_speed_kmh", offroad_speed_kmh), ("max_snap_m", max_snap_m)):
-        if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+        if isinstance(value, (bool, np.bool_)) or not (
+            isinstance(value, (int, float, np.integer, np.floating)) and math.isfinite(value) and value > 0
+        ):
             raise ParameterError(f"{name}: must be a positive number, got {value!r}", name)
     crs = demand.crs if demand.crs is not None else sites.crs
     if crs is None:
         raise CRSError("reach_network: the demand has no CRS, so the roads cannot be matched to it; give it the working CRS")
     require_projected(crs, "demand CRS")
-    if sites.crs is not None and demand.crs is not None:
-        from .coverage import _same_crs
-
-        _same_crs(demand, sites)
+    _same_crs(demand, sites)
+    _check_penalty(turn_penalty_s)  # before the road layer is read
     frame = _resolve_roads(roads, crs)
     net = build_network(
         frame,
@@ -786,30 +820,34 @@ def network_service_areas(reach: Reach, chosen: Any = None, limit_s: float | Non
     net: RoadNetwork | None = notes.get("network")
     if net is None:
         raise InputError("network_service_areas: the Reach carries no road network (make it with reach_network)")
+    from .areas import _as_clip, _chosen
+
     ssnap: Snap = notes["site_snap"]
     limit = float(reach.rule.limit if limit_s is None else limit_s)
-    m = len(ssnap.segment)
-    idx = np.arange(m) if chosen is None else np.asarray(chosen, dtype=np.int64).ravel()
-    if idx.size and (idx.min() < 0 or idx.max() >= m):
-        raise InputError(f"chosen: site indices must lie in 0..{m - 1}")
+    if not (math.isfinite(limit) and limit > 0):
+        raise ParameterError(f"limit_s: the travel-time limit must be a positive number of seconds, got {limit_s!r}", "limit_s")
+    if int(steps) < 1:
+        raise ParameterError(f"steps: must be 1 or more parts per reached road piece, got {steps!r}", "steps")
+    idx = _chosen(chosen, len(ssnap.segment))
     v_off = notes["offroad_speed_kmh"] / 3.6
     cap = notes["max_snap_m"]
-    from .areas import _as_clip
-
     area = _as_clip(clip)
     out = []
-    fr = np.linspace(0.0, 1.0, steps + 1)
-    for j in idx:
-        if not ssnap.snapped[j] or ssnap.distance[j] / v_off > limit:
+    fr = np.linspace(0.0, 1.0, int(steps) + 1)
+    drawn = idx[ssnap.snapped[idx] & (ssnap.distance[idx] / v_off <= limit)]
+    # one graph with a virtual source per drawn site (building it per site re-sorted every edge each time)
+    graph = _source_graph(net, ssnap, drawn) if len(drawn) else None
+    source = dict(zip(drawn.tolist(), range(net.n_nodes, net.n_nodes + len(drawn))))
+    for j in idx.tolist():
+        if j not in source:
             out.append(shapely.Polygon())
             continue
         budget = limit - ssnap.distance[j] / v_off
-        sel = np.array([j])
-        graph = _source_graph(net, ssnap, sel)
-        times = dijkstra(graph, directed=True, indices=net.n_nodes, limit=budget)[: net.n_nodes]
+        times = dijkstra(graph, directed=True, indices=source[j], limit=budget)[: net.n_nodes]
         # reach along each segment from u (fraction fu of it) and from v (fraction fv)
-        pu = times[net.seg_u] + net.penalty(net.seg_u)
-        pv = times[net.seg_v] + net.penalty(net.seg_v)
+        start = _at_node(net, ssnap, np.array([j]))[0]  # no penalty for leaving the node the site stands on
+        pu = times[net.seg_u] + np.where(net.seg_u == start, 0.0, net.penalty(net.seg_u))
+        pv = times[net.seg_v] + np.where(net.seg_v == start, 0.0, net.penalty(net.seg_v))
         fu = np.where(net.forward, np.clip((budget - pu) / net.seg_time, 0.0, 1.0), 0.0)
         fv = np.where(net.backward, np.clip((budget - pv) / net.seg_time, 0.0, 1.0), 0.0)
         fu[~np.isfinite(fu)] = 0.0

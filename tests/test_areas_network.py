@@ -11,7 +11,7 @@ from shapely import LineString, Point
 
 from geocover.areas import service_areas
 from geocover.coverage import reach_geodesic
-from geocover.errors import InputError
+from geocover.errors import InputError, ParameterError
 from geocover.network import network_service_areas, reach_network
 from geocover.values import Demand, Sites
 
@@ -46,6 +46,9 @@ def test_network_areas_one_per_chosen_site_and_clipped():
     assert polys[0].bounds[2] <= 8000.0 + 1e-6 and polys[0].bounds[0] == pytest.approx(6000.0, abs=1.0)
     with pytest.raises(InputError):
         network_service_areas(reach, [5])
+    with pytest.raises(ParameterError) as err:
+        network_service_areas(reach, [0], steps=0)
+    assert err.value.param == "steps"
 
 
 def test_geodesic_area_across_the_antimeridian():

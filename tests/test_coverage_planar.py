@@ -100,6 +100,9 @@ def test_geographic_crs_is_refused_with_the_fix():
     with pytest.raises(CRSError, match="projected") as err:
         reach_planar(d, s, 1000.0)
     assert "geodesic" in str(err.value)
+    # sites in degrees are refused too when only they carry a CRS
+    with pytest.raises(CRSError, match="sites CRS"):
+        reach_planar(Demand(np.array([[10.0, 50.0]]), [1.0]), s, 1000.0)
 
 
 def test_sites_in_another_crs_are_refused():
@@ -107,6 +110,15 @@ def test_sites_in_another_crs_are_refused():
     s = Sites(np.array([[0.0, 0.0]]), crs="EPSG:3857")
     with pytest.raises(CRSError, match="reproject"):
         reach_planar(d, s, 1000.0)
+
+
+@pytest.mark.parametrize("name, bad", [("chunk_rows", 0), ("chunk_rows", "many"), ("threads", None), ("threads", -1)])
+def test_bad_chunk_rows_or_threads_name_the_parameter(name, bad):
+    d = Demand(np.array([[0.0, 0.0]]), [1.0], crs=UTM)
+    s = Sites(np.array([[0.0, 0.0]]), crs=UTM)
+    with pytest.raises(ParameterError) as err:
+        reach_planar(d, s, 10.0, **{name: bad})
+    assert err.value.param == name
 
 
 @pytest.mark.parametrize("bad", [0, -5.0, float("nan"), float("inf"), "far"])
@@ -138,6 +150,9 @@ def test_memory_budget_refusal_names_a_factor_that_fits():
     check_memory(pairs // 9, budget, 40_000 // 9)  # the named factor does fit
     with pytest.raises(ParameterError):
         check_memory(10, -1.0, 10)
+    with pytest.raises(ParameterError) as err:
+        check_memory(10, "lots", 10)  # not a number: named, not a bare ValueError
+    assert err.value.param == "memory_budget_gb"
     assert reach_planar(d, s, 2000.0, memory_budget_gb=budget * 6).matrix.nnz > 0
 
 

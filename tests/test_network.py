@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from shapely import LineString
 
-from geocover.errors import CRSError, LayerError, ParameterError
+from geocover.errors import CRSError, InputError, LayerError, ParameterError
 from geocover.network import build_network, reach_network
 from geocover.values import Demand, Metric, Sites
 
@@ -83,28 +83,43 @@ def _oracle(roads, demand_xy, site_xy, limit, v_off_kmh, max_snap, penalty):
             if d <= max_snap:
                 spliced.setdefault(k, []).append((t, (kind, i)))
                 off[(kind, i)] = d / v_off
+    # the penalty is a cost of passing through a crossing: every road node is split into an arrival node
+    # ("in", X) and a departure node ("out", X) joined by an edge of the penalty; a point standing on a node
+    # (t = 0 or 1) is reached from its arrival node and leaves from its departure node, so starting or ending
+    # at a node is not passing through it
     g = nx.DiGraph()
 
     def add(u, v, w):
         if not g.has_edge(u, v) or g[u][v]["weight"] > w:
             g.add_edge(u, v, weight=w)
 
+    def depart(n):
+        return ("out", n) if n in nbrs else n
+
+    def arrive(n):
+        return ("in", n) if n in nbrs else n
+
+    for node in nbrs:
+        add(("in", node), ("out", node), penalty if node in crossing else 0.0)
     for k, s in enumerate(segs):
         length = float(np.hypot(*(s[1] - s[0])))
-        chain = [(0.0, tuple(s[0]))] + sorted(spliced.get(k, []), key=lambda x: x[0]) + [(1.0, tuple(s[1]))]
+        inside = [p for p in spliced.get(k, []) if 0.0 < p[0] < 1.0]
+        chain = [(0.0, tuple(s[0]))] + sorted(inside, key=lambda x: x[0]) + [(1.0, tuple(s[1]))]
         for (t0, n0), (t1, n1) in zip(chain[:-1], chain[1:]):
             w = (t1 - t0) * length / seg_speed[k]
             if seg_way[k] >= 0:
-                add(n0, n1, w + (penalty if n0 in crossing else 0.0))
+                add(depart(n0), arrive(n1), w)
             if seg_way[k] <= 0:
-                add(n1, n0, w + (penalty if n1 in crossing else 0.0))
+                add(depart(n1), arrive(n0), w)
     for k, points in spliced.items():  # a point snapped onto an end node stands on that node
         u, v = tuple(segs[k][0]), tuple(segs[k][1])
         for t, name in points:
             for end, at in ((u, 0.0), (v, 1.0)):
-                if t == at:
-                    add(end, name, penalty if end in crossing else 0.0)
-                    add(name, end, 0.0)
+                if t == at and name[0] == "d":  # demand is only arrived at, never driven through
+                    add(("in", end), name, 0.0)
+                elif t == at:  # a site leaves from the node (or meets demand standing on it)
+                    add(name, ("out", end), 0.0)
+                    add(name, ("in", end), 0.0)
     expected = {}
     for j in range(len(site_xy)):
         src = ("s", j)
@@ -196,6 +211,31 @@ def test_turn_penalty_at_intersections_only():
     assert times[1, 1] == pytest.approx(40.0)  # 400 m round the bend, no penalty
 
 
+def test_starting_or_ending_on_an_intersection_node_pays_no_penalty():
+    # a cross of four 500 m arms at 10 m/s; site 0 and demand 0 stand on the crossing node (0, 0)
+    arms = [[(0.0, 0.0), (-500.0, 0.0)], [(0.0, 0.0), (500.0, 0.0)], [(0.0, 0.0), (0.0, 500.0)], [(0.0, 0.0), (0.0, -500.0)]]
+    roads = _roads(arms, kmh=[36.0] * 4, oneway=["no"] * 4)
+    demand_xy = np.array([[0.0, 0.0], [0.0, 100.0], [200.0, 0.0]])
+    site_xy = np.array([[0.0, 0.0], [-100.0, 0.0]])
+    r = reach_network(Demand(demand_xy, np.ones(3), crs=UTM), Sites(site_xy, crs=UTM), roads, 200.0,
+                      speed_field="kmh", oneway_field="oneway", turn_penalty_s=15.0, max_snap_m=5.0)
+    times = r.matrix.toarray()
+    # closed form: 10 m/s along the arms; 15 s only when a route passes through the crossing
+    assert times[0, 0] == 0.0  # site and demand on the same node
+    assert times[1, 0] == pytest.approx(10.0) and times[2, 0] == pytest.approx(20.0)  # starting on the node
+    assert times[0, 1] == pytest.approx(10.0)  # ending on the node
+    assert times[1, 1] == pytest.approx(10.0 + 15.0 + 10.0) and times[2, 1] == pytest.approx(10.0 + 15.0 + 20.0)
+    expected = _oracle(roads, demand_xy, site_xy, 200.0, 5.0, 5.0, 15.0)  # networkx Dijkstra
+    assert {(int(i), int(j)) for i, j in zip(*np.nonzero(r.pattern.toarray()))} == set(expected)
+    for (i, j), t in expected.items():
+        assert times[i, j] == pytest.approx(t, abs=1e-9)
+    # the display polygon of site 0 within 45 s reaches 450 m up each arm (300 m if the penalty were charged)
+    from geocover.network import network_service_areas
+
+    poly = network_service_areas(r, [0], limit_s=45.0)[0]
+    assert poly.intersection(LineString([(0.0, 0.0), (0.0, 500.0)])).length == pytest.approx(450.0, abs=1.0)
+
+
 def test_unsnapped_points_and_disconnected_parts_are_reported(caplog):
     roads = _roads([[(0.0, 0.0), (1000.0, 0.0)], [(5000.0, 0.0), (6000.0, 0.0)]], kmh=[36.0, 36.0])
     d = Demand(np.array([[100.0, 0.0], [5500.0, 0.0], [3000.0, 3000.0]]), np.array([10.0, 20.0, 5.0]), crs=UTM)
@@ -255,6 +295,12 @@ def test_bad_inputs_name_the_field_or_parameter():
     assert err.value.param == "limit"
     with pytest.raises(ParameterError):
         reach_network(d, s, good, 10.0)  # neither speed_field nor class_field
+    with pytest.raises(ParameterError) as err:
+        reach_network(d, s, "no/such/roads.gpkg", 100.0, speed_field="kmh", turn_penalty_s="long")  # before any read
+    assert err.value.param == "turn_penalty_s"
+    with pytest.raises(InputError, match="sites: expected geocover Sites"):
+        reach_network(d, s.xy, good, 10.0, speed_field="kmh")
+    assert reach_network(d, s, good, 200.0, speed_field="kmh", max_snap_m=np.int64(5)).matrix.nnz == 1  # numpy numbers are numbers
     with pytest.raises(CRSError):
         reach_network(Demand(d.xy, [1.0], crs="EPSG:4326"), Sites(s.xy, crs="EPSG:4326"), good, 10.0, speed_field="kmh")
     points = gpd.GeoDataFrame({"kmh": [1.0]}, geometry=gpd.points_from_xy([0.0], [0.0]), crs=UTM)
