@@ -217,8 +217,9 @@ def demand_from_grid(
         ``unit`` is the flat index ``row * width + col`` of the source cell
         (the block's top-left cell when coarsened); ``footprint`` is the
         distance from the point to the farthest corner of its cell or block
-        (half the diagonal for an uncoarsened cell), an upper bound on how
-        far anyone it stands for lives from it.
+        (half the diagonal for an uncoarsened cell; a block at the grid's
+        right or bottom edge is cut at the edge), an upper bound on how far
+        anyone it stands for lives from it.
 
     Examples
     --------
@@ -428,7 +429,7 @@ def demand_from_grid(
                     continue
                 out.reserve(len(pts), _expected_points(out.n + len(pts), row_off + h, height))
                 x, y = pts.x, pts.y
-                cx, cy = block_corners(transform, pts.row0, pts.col0, factor)
+                cx, cy = block_corners(transform, pts.row0, pts.col0, factor, grid_shape=(height, width))
                 if transformer is not None:
                     x, y = transformer.transform(x, y)
                     cx, cy = transformer.transform(cx, cy)

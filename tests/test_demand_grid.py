@@ -151,13 +151,25 @@ def test_coarsening_weighted_centroids_and_footprints(tmp_path, k):
         assert d.weight[i] == pytest.approx(s, rel=1e-6)
         assert d.xy[i, 0] == pytest.approx(x, abs=1e-6)
         assert d.xy[i, 1] == pytest.approx(y, abs=1e-6)
-        # footprint bounds the distance to every corner of the k x k block
+        # footprint bounds the distance to every corner of the k x k block, cut at the grid's edge
         r0, c0 = divmod(u, data.shape[1])
-        cx, cy = apply_affine(UTM, np.array([c0, c0 + k, c0, c0 + k]), np.array([r0, r0, r0 + k, r0 + k]))
+        r1, c1 = min(r0 + k, data.shape[0]), min(c0 + k, data.shape[1])
+        cx, cy = apply_affine(UTM, np.array([c0, c1, c0, c1]), np.array([r0, r0, r1, r1]))
         assert d.footprint[i] == pytest.approx(np.hypot(cx - x, cy - y).max(), rel=1e-9)
-        assert d.footprint[i] >= 0.5 * k * 100 * math.sqrt(2) - 1e-9
+        assert d.footprint[i] >= 0.5 * 100 * math.hypot(r1 - r0, c1 - c0) - 1e-9
+        if (r1 - r0, c1 - c0) == (k, k):
+            assert d.footprint[i] >= 0.5 * k * 100 * math.sqrt(2) - 1e-9
     assert d.total == pytest.approx(float(data.astype(np.float64).sum()), rel=1e-9)
     conserved(d)
+
+
+def test_block_larger_than_the_grid_has_the_grid_as_footprint(tmp_path):
+    # 3 x 5 cells of 100 m, coarsen=10: one block, cut to the 300 m x 500 m grid
+    path = write_raster(tmp_path / "pop.tif", np.ones((3, 5), dtype=np.float32))
+    d = demand_from_grid(path, coarsen=10)
+    assert d.total == 15.0 and d.unit.tolist() == [0]
+    assert d.xy[0].tolist() == [500250.0, 3999850.0]
+    assert d.footprint[0] == pytest.approx(math.hypot(250.0, 150.0), rel=1e-12)  # half the grid's diagonal
 
 
 def test_window_size_does_not_change_the_result(tmp_path):
@@ -368,9 +380,16 @@ def test_rotated_grid_centres_follow_the_affine(tmp_path, k):
         s, x, y = ref[u]
         assert d.weight[i] == pytest.approx(s)
         assert d.xy[i].tolist() == pytest.approx([x, y], abs=1e-6)
+        # farthest corner of the block (cut at the grid's edge), by the affine directly
+        r0, c0 = divmod(u, 4)
+        r1, c1 = min(r0 + k, 3), min(c0 + k, 4)
+        cx, cy = apply_affine(transform, np.array([c0, c1, c0, c1]), np.array([r0, r0, r1, r1]))
+        assert d.footprint[i] == pytest.approx(np.hypot(cx - x, cy - y).max(), rel=1e-9)
+        assert d.footprint[i] >= 50.0 * math.hypot(r1 - r0, c1 - c0) - 1e-6
+        if (r1 - r0, c1 - c0) == (k, k):
+            assert d.footprint[i] >= 50.0 * k * math.sqrt(2) - 1e-6
     if k == 1:  # a rotated square cell still has half its diagonal as footprint
         np.testing.assert_allclose(d.footprint, 50.0 * math.sqrt(2))
-    assert (d.footprint >= 50.0 * k * math.sqrt(2) - 1e-6).all()
 
 
 def test_per_dataset_mask_is_nodata(tmp_path):
