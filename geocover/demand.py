@@ -840,16 +840,17 @@ class _RasterCells:
 
     def around(self, poly: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         import shapely
-        from rasterio.windows import Window, from_bounds
+        from rasterio.windows import Window
 
         src = self.src
         geom = poly if self.same else shapely.transform(shapely.segmentize(poly, max(_longest_side(poly) / 50.0, 1e-9)), self._to_src_xy)
         xmin, ymin, xmax, ymax = shapely.bounds(geom)
-        win = from_bounds(xmin, ymin, xmax, ymax, transform=src.transform)
-        col0 = max(int(math.floor(win.col_off)), 0)
-        row0 = max(int(math.floor(win.row_off)), 0)
-        col1 = min(int(math.ceil(win.col_off + win.width)), src.width)
-        row1 = min(int(math.ceil(win.row_off + win.height)), src.height)
+        # pixel span of the bounds through the inverse affine: any orientation (north-up or south-up)
+        cols, rows = apply_affine(~src.transform, np.array([xmin, xmax, xmin, xmax]), np.array([ymin, ymin, ymax, ymax]))
+        col0 = max(int(math.floor(cols.min())), 0)
+        row0 = max(int(math.floor(rows.min())), 0)
+        col1 = min(int(math.ceil(cols.max())), src.width)
+        row1 = min(int(math.ceil(rows.max())), src.height)
         empty = (np.zeros(0, dtype=object), np.zeros((0, 2)), np.zeros(0))
         if col1 <= col0 or row1 <= row0:
             return empty
