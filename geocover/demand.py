@@ -288,9 +288,11 @@ def demand_from_grid(
         nodata = src.nodatavals[bidx - 1]
         flags = src.mask_flag_enums[bidx - 1]
         use_mask = MaskFlags.per_dataset in flags or MaskFlags.alpha in flags
-        scale = src.scales[bidx - 1] if src.scales else 1.0
-        offset = src.offsets[bidx - 1] if src.offsets else 0.0
-        scaled = (scale not in (None, 1.0)) or (offset not in (None, 0.0))
+        scale = src.scales[bidx - 1] if src.scales else None
+        offset = src.offsets[bidx - 1] if src.offsets else None
+        scale = 1.0 if scale is None else float(scale)
+        offset = 0.0 if offset is None else float(offset)
+        scaled = scale != 1.0 or offset != 0.0
         if scaled:
             notes.append(f"applied scale {scale} and offset {offset}")
         is_float = np.issubdtype(np.dtype(src.dtypes[bidx - 1]), np.floating)
@@ -359,8 +361,9 @@ def demand_from_grid(
                 elif nodata is not None:
                     nod = np.isnan(raw) if (is_float and math.isnan(nodata)) else raw == nodata
                 counts = raw.astype(np.float64) if (need_f64 and raw.dtype != np.float64) else raw
-                if scaled:
-                    counts = counts * (1.0 if scale is None else scale) + (0.0 if offset is None else offset)
+                if scaled:  # counts is our own float64 window here (need_f64): scale it in place
+                    counts *= scale
+                    counts += offset
                 if nod is not None:
                     n_nod = int(np.count_nonzero(nod))
                     if n_nod:

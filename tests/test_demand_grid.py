@@ -72,6 +72,22 @@ def test_scale_and_offset_applied(tmp_path):
     assert any("scale" in n for n in d.summary["notes"])
 
 
+@pytest.mark.parametrize("dtype", ["float64", "int16"])
+def test_scale_and_offset_over_several_windows(tmp_path, dtype):
+    # float64 windows are scaled in the reused read buffer; nodata is judged on the raw values
+    rng = np.random.default_rng(8)
+    data = rng.integers(0, 30, size=(9, 4)).astype(dtype)
+    data[3, 1] = data[7, 2] = -1
+    path = write_raster(tmp_path / "pop.tif", data, nodata=-1, scale=2.5, offset=0.5)
+    d = demand_from_grid(path, window_rows=2)
+    good = data != -1
+    expected = data.astype(np.float64) * 2.5 + 0.5
+    assert d.total == pytest.approx(float(expected[good].sum()), rel=1e-12)
+    assert sorted(d.unit.tolist()) == np.flatnonzero(good.ravel()).tolist()
+    assert d.summary["dropped"]["nodata"]["cells"] == 2
+    conserved(d)
+
+
 def test_band_choice_and_bad_band(tmp_path):
     data = np.stack([np.ones((3, 3)), np.full((3, 3), 2.0)]).astype(np.float32)
     path = write_raster(tmp_path / "pop.tif", data)
