@@ -125,13 +125,16 @@ def _log_summary(what: str, summary: dict[str, Any]) -> None:
 
 
 def _default_window_rows(width: int, block_height: int, factor: int) -> int:
+    """Rows per window: about WINDOW_CELLS cells, a multiple of the file's block height and of ``factor``.
+
+    When one strip of whole blocks is too wide (over 16 x WINDOW_CELLS), only
+    the coarsening factor is kept aligned.
+    """
     rows = max(1, WINDOW_CELLS // max(width, 1))
     step = math.lcm(max(block_height, 1), factor)
-    if step * width <= 16 * WINDOW_CELLS and step <= rows:
-        return max(step, rows // step * step)
-    if step * width <= 16 * WINDOW_CELLS:
-        return step
-    return max(factor, rows // factor * factor)
+    if step * width > 16 * WINDOW_CELLS:
+        step = factor
+    return max(step, rows // step * step)
 
 
 def _read_clip(clip: Any, grid_crs: Any) -> Any:
