@@ -88,8 +88,8 @@ def block_sums(counts: np.ndarray, factor: int) -> tuple[np.ndarray, np.ndarray,
     """
     counts = np.asarray(counts, dtype=np.float64)
     if factor == 1:
-        ones = np.full(counts.shape, 0.5)
-        return counts, counts * ones, counts * ones
+        half = counts * 0.5  # every cell centre is half a pixel from its own corner
+        return counts, half, half.copy()
     padded = _pad_to(counts, factor)
     hb, wb = padded.shape[0] // factor, padded.shape[1] // factor
     cube = padded.reshape(hb, factor, wb, factor)
