@@ -605,11 +605,13 @@ def demand_from_areas(
         polygon it may fall outside).  ``inside``: one point per polygon,
         guaranteed inside (shapely.point_on_surface).  ``spread``: each
         polygon's people split over the cells of ``weight_raster`` in
-        proportion to cell value times the cell's area inside the polygon, or
+        proportion to cell value times the share of the cell's area inside
+        the polygon, or
         without a raster over a square lattice of ``spacing_m`` by area; the
         shares of a polygon sum to its total and every point lies inside it.
     weight_raster : path, optional
-        Land-use or building-density grid for ``spread``.  Nodata counts as
+        Land-use or building-density grid for ``spread`` (band 1, values as
+        stored: no scale or offset is applied).  Nodata counts as
         zero weight; a polygon with no weight inside falls back to the lattice
         (when ``spacing_m`` is given) or to one inside point, and says so.
     spacing_m : float or str, optional
