@@ -12,7 +12,7 @@ import pytest
 from affine import Affine
 
 from geocover.demand import demand_from_grid
-from geocover.errors import CRSError, GeocoverError, InputError, ParameterError
+from geocover.errors import CRSError, GeocoverError, InputError, LayerError, ParameterError
 from geocover.grid import apply_affine, ellipsoid_band_area
 
 from test_demand_fixtures import write_raster
@@ -133,8 +133,9 @@ def test_wrong_choices_list_the_valid_ones(tmp_path):
 
 
 def test_missing_file_is_a_layer_error(tmp_path):
-    with pytest.raises(GeocoverError, match="does not exist"):
+    with pytest.raises(LayerError, match="does not exist"):
         demand_from_grid(tmp_path / "nope.tif")
+    assert issubclass(LayerError, GeocoverError)
 
 
 def _brute_coarsen(data, transform, k):
@@ -216,6 +217,11 @@ def test_geographic_grid_gets_a_local_utm_crs(tmp_path, caplog):
     assert d.xy[0].tolist() == pytest.approx([x, y], abs=1e-6)
     # footprint is about half the cell diagonal in metres (~ 870 m x 1110 m cells)
     assert 600 < d.footprint[0] < 760
+    # exactly: the farthest of the cell's four corners, each carried to UTM by pyproj
+    tr = Transformer.from_crs("EPSG:4326", "EPSG:32626", always_xy=True)
+    lons, lats = apply_affine(transform, np.array([0.0, 1.0, 0.0, 1.0]), np.array([0.0, 0.0, 1.0, 1.0]))
+    cx, cy = tr.transform(lons, lats)
+    assert d.footprint[0] == pytest.approx(np.hypot(cx - x, cy - y).max(), rel=1e-9)
     assert d.summary["source_crs"] == "EPSG:4326"
 
 
