@@ -416,24 +416,22 @@ def demand_from_grid(
                     cells_clip_out += int(np.count_nonzero((counts > 0) & (share < 1.0)))
                     people_clip_out += out_people
                     counts = kept
-                if const_fp is not None:
-                    # plain cells in the grid's own CRS: centres straight into the output
+                if const_fp is not None:  # plain cells in the grid's own CRS: centres straight into the output
                     flat = np.flatnonzero(counts > 0)
-                    if not sized:
-                        out.reserve(_capacity_guess(len(flat), h, height, width, factor))
-                        sized = True
-                    if len(flat):
-                        out.reserve(len(flat), _expected_points(out.n + len(flat), row_off + h, height))
-                        out.add_cells(flat, row_off * width, counts.reshape(-1)[flat], transform, width, const_fp)
+                    made = len(flat)
+                else:
+                    pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
+                    made = len(pts)
+                if not sized:
+                    out.reserve(_capacity_guess(made, h, height, width, factor))
+                    sized = True
+                if made == 0:
+                    continue
+                out.reserve(made, _expected_points(out.n + made, row_off + h, height))
+                if const_fp is not None:
+                    out.add_cells(flat, row_off * width, counts.reshape(-1)[flat], transform, width, const_fp)
                     del flat
                     continue
-                pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
-                if not sized:
-                    out.reserve(_capacity_guess(len(pts), h, height, width, factor))
-                    sized = True
-                if len(pts) == 0:
-                    continue
-                out.reserve(len(pts), _expected_points(out.n + len(pts), row_off + h, height))
                 x, y = pts.x, pts.y
                 cx, cy = block_corners(transform, pts.row0, pts.col0, factor, grid_shape=(height, width))
                 if transformer is not None:
