@@ -121,6 +121,48 @@ def _log_summary(what: str, summary: dict[str, Any]) -> None:
         logger.info("%s: %s", what, note)
 
 
+def _demand(
+    label: str,
+    started: float,
+    *,
+    source: Any,
+    kind: str,
+    src_crs: Any,
+    work: Any,
+    people_in: float,
+    xy: np.ndarray,
+    weight: np.ndarray,
+    unit: np.ndarray,
+    footprint: np.ndarray,
+    notes: list[str],
+    dropped: dict[str, dict[str, Any]] | None = None,
+    **details: Any,
+) -> Demand:
+    """The Demand a reader returns, with the summary every reader gives (logged at INFO).
+
+    ``balance`` is ``people_in - people_out - sum of dropped people``; one
+    formula for every reader, so the conservation check means the same thing.
+    """
+    dropped = {} if dropped is None else dropped
+    people_out = float(np.sum(weight))
+    summary: dict[str, Any] = {
+        "source": str(source),
+        "kind": kind,
+        **details,
+        "source_crs": _crs_text(src_crs),
+        "crs": _crs_text(work),
+        "people_in": people_in,
+        "people_out": people_out,
+        "points": int(len(weight)),
+        "dropped": dropped,
+        "balance": people_in - people_out - sum(d["people"] for d in dropped.values()),
+        "seconds": round(time.perf_counter() - started, 3),
+        "notes": notes,
+    }
+    _log_summary(label, summary)
+    return Demand(xy, weight, unit=unit, footprint=footprint, crs=_crs_text(work), summary=summary)
+
+
 # --------------------------------------------------------------------------- grids
 
 
@@ -454,7 +496,6 @@ def demand_from_grid(
             notes.append(f"counted {cells_bad} negative or non-finite cell(s) as zero (bad_values='zero')")
 
     xy, weight, unit, footprint = out.finish()
-    people_out = float(weight.sum())
     dropped: dict[str, dict[str, Any]] = {}
     if cells_nodata:
         dropped["nodata"] = {"cells": cells_nodata, "people": 0.0}
@@ -462,27 +503,16 @@ def demand_from_grid(
         dropped["bad_values"] = {"cells": cells_bad, "people": 0.0}
     if clip_geom is not None:
         dropped["outside_clip"] = {"cells": cells_clip_out, "people": people_clip_out}
-    summary: dict[str, Any] = {
-        "source": str(path),
-        "kind": "grid",
-        "band": bidx,
-        "values": values.value,
-        "source_crs": _crs_text(src_crs),
-        "crs": _crs_text(work),
-        "grid_shape": [height, width],
-        "coarsen": factor,
-        "clip_mode": clip_mode.value if clip_geom is not None else None,
-        "window_rows": min(wrows, height),
-        "people_in": people_in,
-        "people_out": people_out,
-        "points": int(len(weight)),
-        "dropped": dropped,
-        "balance": people_in - people_out - sum(d["people"] for d in dropped.values()),
-        "seconds": round(time.perf_counter() - started, 3),
-        "notes": notes,
-    }
-    _log_summary(what, summary)
-    return Demand(xy, weight, unit=unit, footprint=footprint, crs=_crs_text(work), summary=summary)
+    return _demand(
+        what, started, source=path, kind="grid", src_crs=src_crs, work=work, people_in=people_in,
+        xy=xy, weight=weight, unit=unit, footprint=footprint, notes=notes, dropped=dropped,
+        band=bidx,
+        values=values.value,
+        grid_shape=[height, width],
+        coarsen=factor,
+        clip_mode=clip_mode.value if clip_geom is not None else None,
+        window_rows=min(wrows, height),
+    )
 
 
 def _window_box(wt: Any, h: int, w: int) -> tuple[float, float, float, float]:
@@ -711,24 +741,10 @@ def demand_from_areas(
                 notes.append(f"{outside} centroid(s) fall outside their polygon (concave shapes); placement='inside' avoids that")
             mode["centroids_outside"] = outside
 
-    people_out = float(np.sum(weight))
-    summary: dict[str, Any] = {
-        "source": str(source),
-        "kind": "areas",
-        "population_field": population,
-        "source_crs": _crs_text(src_crs),
-        "crs": _crs_text(work),
-        "people_in": people_in,
-        "people_out": people_out,
-        "points": int(len(weight)),
-        "dropped": {},
-        "balance": people_in - people_out,
-        **mode,
-        "seconds": round(time.perf_counter() - started, 3),
-        "notes": notes,
-    }
-    _log_summary(f"{what} {source}", summary)
-    return Demand(xy, weight, unit=unit, footprint=footprint, crs=_crs_text(work), summary=summary)
+    return _demand(
+        f"{what} {source}", started, source=source, kind="areas", src_crs=src_crs, work=work, people_in=people_in,
+        xy=xy, weight=weight, unit=unit, footprint=footprint, notes=notes, population_field=population, **mode,
+    )
 
 
 def _spread(
@@ -957,22 +973,9 @@ def demand_from_points(layer: Any, weight: str | None, *, crs: Any = None) -> De
     w = people[populated][index] / per_feature[index]
     if (per_feature > 1).any():
         notes.append(f"{int((per_feature > 1).sum())} multipoint feature(s) shared their weight equally among their points")
-    people_in = float(people.sum())
-    summary: dict[str, Any] = {
-        "source": str(source),
-        "kind": "points",
-        "weight_field": weight,
-        "source_crs": _crs_text(src_crs),
-        "crs": _crs_text(work),
-        "people_in": people_in,
-        "people_out": float(w.sum()),
-        "points": int(len(w)),
-        "dropped": {},
-        "balance": people_in - float(w.sum()),
-        "features": int(len(frame)),
-        "features_empty": int(len(frame) - len(populated)),
-        "seconds": round(time.perf_counter() - started, 3),
-        "notes": notes,
-    }
-    _log_summary(f"{what} {source}", summary)
-    return Demand(xy, w, unit=populated[index].astype(np.int64), footprint=np.zeros(len(w)), crs=_crs_text(work), summary=summary)
+    return _demand(
+        f"{what} {source}", started, source=source, kind="points", src_crs=src_crs, work=work,
+        people_in=float(people.sum()), xy=xy, weight=w, unit=populated[index].astype(np.int64),
+        footprint=np.zeros(len(w)), notes=notes,
+        weight_field=weight, features=int(len(frame)), features_empty=int(len(frame) - len(populated)),
+    )
