@@ -687,7 +687,7 @@ def demand_from_areas(
 
     missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     kinds = shapely.get_type_id(geoms)
-    if (~missing & np.isin(kinds, [0, 4])).all():
+    if (~missing).any() and np.isin(kinds[~missing], [0, 4]).all():  # empty rows do not hide a point layer
         raise LayerError(f"{what}: {source} holds points, not polygons; use demand_from_points (tool demand-areas reads polygons)")
     not_poly = ~missing & ~np.isin(kinds, [3, 6, 7])
     if not_poly.any():

@@ -233,6 +233,10 @@ def test_points_layer_is_not_areas():
     pts = gpd.GeoDataFrame({"pop": [1.0]}, geometry=[shapely.Point(0, 0)], crs=CRS)
     with pytest.raises(LayerError, match="demand_from_points"):
         demand_from_areas(pts, "pop")
+    # a point layer with a feature of no geometry (and nobody in it) is still recognised as points
+    holey = gpd.GeoDataFrame({"pop": [1.0, 0.0]}, geometry=[shapely.Point(0, 0), None], crs=CRS)
+    with pytest.raises(LayerError, match="demand_from_points"):
+        demand_from_areas(holey, "pop")
 
 
 def test_reads_a_geopackage_layer_in_lonlat_and_chooses_a_local_crs(tmp_path, caplog):
