@@ -848,14 +848,17 @@ class _RasterCells:
 
         self.path = path
         self.src = open_raster(path, what="weight raster")
-        self.crs = as_crs(self.src.crs.to_wkt(), "weight raster")
-        self.same = self.crs.equals(work)
-        self.to_src = None if self.same else Transformer.from_crs(work, self.crs, always_xy=True)
-        self.to_work = None if self.same else Transformer.from_crs(self.crs, work, always_xy=True)
-        t = self.src.transform
-        if t.b or t.d:
+        try:  # the dataset is closed on any refusal here, not only on the rotated-grid one
+            t = self.src.transform
+            if t.b or t.d:
+                raise LayerError(f"weight raster {path}: the grid is rotated; warp it north-up (gdalwarp) first")
+            self.crs = as_crs(self.src.crs.to_wkt(), "weight raster")
+            self.same = self.crs.equals(work)
+            self.to_src = None if self.same else Transformer.from_crs(work, self.crs, always_xy=True)
+            self.to_work = None if self.same else Transformer.from_crs(self.crs, work, always_xy=True)
+        except BaseException:
             self.src.close()
-            raise LayerError(f"weight raster {path}: the grid is rotated; warp it north-up (gdalwarp) first")
+            raise
 
     def close(self) -> None:
         self.src.close()
