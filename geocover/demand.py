@@ -69,10 +69,15 @@ def _positive_int(value: Any, param: str, allow_none: bool = False) -> int | Non
 
 
 def _metre_factor(crs: Any) -> float | None:
-    """Metres per CRS unit of a projected CRS, None when it is geographic."""
+    """Metres per horizontal CRS unit of a projected CRS, None when it is geographic.
+
+    A compound CRS (projected + vertical) is judged by its horizontal part: a
+    height axis in metres must not make a grid in feet look metric.
+    """
     if crs.is_geographic:
         return None
-    factors = {axis.unit_conversion_factor for axis in crs.axis_info}
+    horizontal = crs.sub_crs_list[0] if crs.is_compound and crs.sub_crs_list else crs
+    factors = {axis.unit_conversion_factor for axis in horizontal.axis_info}
     return float(next(iter(factors))) if len(factors) == 1 else 1.0
 
 

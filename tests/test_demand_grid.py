@@ -233,6 +233,21 @@ def test_given_crs_must_be_projected(tmp_path):
     assert d.crs == "EPSG:3857" and d.total == 4.0
 
 
+def test_compound_crs_in_feet_is_not_taken_for_metres():
+    from pyproj import CRS
+
+    from geocover.demand import _metre_factor, _working_crs
+
+    # EPSG:2229 is California zone 5 in US survey feet; +5703 adds NAVD88 heights in metres
+    us_foot = 1200.0 / 3937.0  # definition of the US survey foot (NIST)
+    assert _metre_factor(CRS("EPSG:2229+5703")) == pytest.approx(us_foot, rel=1e-12)
+    assert _metre_factor(CRS("EPSG:2229")) == pytest.approx(us_foot, rel=1e-12)
+    assert _metre_factor(CRS("EPSG:32626+5703")) == 1.0
+    # so a local projected CRS in metres is chosen, not a CRSError about the feet
+    work = _working_crs(None, CRS("EPSG:2229+5703"), (-118.0, 34.0))
+    assert work.to_epsg() == 32611
+
+
 def _geod_cell_area(lon0, lat0, dlon, dlat, n=2000):
     """Cell area from pyproj's Geod.polygon_area_perimeter, with the parallels densified.
 
