@@ -184,8 +184,8 @@ def _default_window_rows(width: int, block_height: int, factor: int) -> int:
     return max(step, rows // step * step)
 
 
-def _read_clip(clip: Any, grid_crs: Any) -> Any:
-    """The study area as one valid shapely geometry in the grid's CRS."""
+def _read_clip(clip: Any, grid_crs: Any) -> tuple[Any, int]:
+    """The study area as one valid shapely geometry in the grid's CRS, and how many polygons were repaired."""
     import geopandas as gpd
     import shapely
 
@@ -210,7 +210,10 @@ def _read_clip(clip: Any, grid_crs: Any) -> Any:
     area = shapely.get_parts(area)
     area = shapely.union_all(area[np.isin(shapely.get_type_id(area), [3, 6])])
     if area.is_empty:
-        raise LayerError("clip (study area): the polygons are empty")
+        raise LayerError(
+            "clip (study area): the polygons have no area (empty, or nothing left after make_valid); "
+            "give a polygon layer that covers the study area"
+        )
     return area, int(invalid.sum())
 
 
