@@ -69,10 +69,15 @@ def _positive_int(value: Any, param: str, allow_none: bool = False) -> int | Non
 
 
 def _metre_factor(crs: Any) -> float | None:
-    """Metres per CRS unit of a projected CRS, None when it is geographic."""
+    """Metres per horizontal CRS unit of a projected CRS, None when it is geographic.
+
+    A compound CRS (projected + vertical) is judged by its horizontal part: a
+    height axis in metres must not make a grid in feet look metric.
+    """
     if crs.is_geographic:
         return None
-    factors = {axis.unit_conversion_factor for axis in crs.axis_info}
+    horizontal = crs.sub_crs_list[0] if crs.is_compound and crs.sub_crs_list else crs
+    factors = {axis.unit_conversion_factor for axis in horizontal.axis_info}
     return float(next(iter(factors))) if len(factors) == 1 else 1.0
 
 
@@ -121,21 +126,66 @@ def _log_summary(what: str, summary: dict[str, Any]) -> None:
         logger.info("%s: %s", what, note)
 
 
+def _demand(
+    label: str,
+    started: float,
+    *,
+    source: Any,
+    kind: str,
+    src_crs: Any,
+    work: Any,
+    people_in: float,
+    xy: np.ndarray,
+    weight: np.ndarray,
+    unit: np.ndarray,
+    footprint: np.ndarray,
+    notes: list[str],
+    dropped: dict[str, dict[str, Any]] | None = None,
+    **details: Any,
+) -> Demand:
+    """The Demand a reader returns, with the summary every reader gives (logged at INFO).
+
+    ``balance`` is ``people_in - people_out - sum of dropped people``; one
+    formula for every reader, so the conservation check means the same thing.
+    """
+    dropped = {} if dropped is None else dropped
+    people_out = float(np.sum(weight))
+    summary: dict[str, Any] = {
+        "source": str(source),
+        "kind": kind,
+        **details,
+        "source_crs": _crs_text(src_crs),
+        "crs": _crs_text(work),
+        "people_in": people_in,
+        "people_out": people_out,
+        "points": int(len(weight)),
+        "dropped": dropped,
+        "balance": people_in - people_out - sum(d["people"] for d in dropped.values()),
+        "seconds": round(time.perf_counter() - started, 3),
+        "notes": notes,
+    }
+    _log_summary(label, summary)
+    return Demand(xy, weight, unit=unit, footprint=footprint, crs=_crs_text(work), summary=summary)
+
+
 # --------------------------------------------------------------------------- grids
 
 
 def _default_window_rows(width: int, block_height: int, factor: int) -> int:
+    """Rows per window: about WINDOW_CELLS cells, a multiple of the file's block height and of ``factor``.
+
+    When one strip of whole blocks is too wide (over 16 x WINDOW_CELLS), only
+    the coarsening factor is kept aligned.
+    """
     rows = max(1, WINDOW_CELLS // max(width, 1))
     step = math.lcm(max(block_height, 1), factor)
-    if step * width <= 16 * WINDOW_CELLS and step <= rows:
-        return max(step, rows // step * step)
-    if step * width <= 16 * WINDOW_CELLS:
-        return step
-    return max(factor, rows // factor * factor)
+    if step * width > 16 * WINDOW_CELLS:
+        step = factor
+    return max(step, rows // step * step)
 
 
-def _read_clip(clip: Any, grid_crs: Any) -> Any:
-    """The study area as one valid shapely geometry in the grid's CRS."""
+def _read_clip(clip: Any, grid_crs: Any) -> tuple[Any, int]:
+    """The study area as one valid shapely geometry in the grid's CRS, and how many polygons were repaired."""
     import geopandas as gpd
     import shapely
 
@@ -160,7 +210,10 @@ def _read_clip(clip: Any, grid_crs: Any) -> Any:
     area = shapely.get_parts(area)
     area = shapely.union_all(area[np.isin(shapely.get_type_id(area), [3, 6])])
     if area.is_empty:
-        raise LayerError("clip (study area): the polygons are empty")
+        raise LayerError(
+            "clip (study area): the polygons have no area (empty, or nothing left after make_valid); "
+            "give a polygon layer that covers the study area"
+        )
     return area, int(invalid.sum())
 
 
@@ -217,8 +270,9 @@ def demand_from_grid(
         ``unit`` is the flat index ``row * width + col`` of the source cell
         (the block's top-left cell when coarsened); ``footprint`` is the
         distance from the point to the farthest corner of its cell or block
-        (half the diagonal for an uncoarsened cell), an upper bound on how
-        far anyone it stands for lives from it.
+        (half the diagonal for an uncoarsened cell; a block at the grid's
+        right or bottom edge is cut at the edge), an upper bound on how far
+        anyone it stands for lives from it.
 
     Examples
     --------
@@ -287,9 +341,11 @@ def demand_from_grid(
         nodata = src.nodatavals[bidx - 1]
         flags = src.mask_flag_enums[bidx - 1]
         use_mask = MaskFlags.per_dataset in flags or MaskFlags.alpha in flags
-        scale = src.scales[bidx - 1] if src.scales else 1.0
-        offset = src.offsets[bidx - 1] if src.offsets else 0.0
-        scaled = (scale not in (None, 1.0)) or (offset not in (None, 0.0))
+        scale = src.scales[bidx - 1] if src.scales else None
+        offset = src.offsets[bidx - 1] if src.offsets else None
+        scale = 1.0 if scale is None else float(scale)
+        offset = 0.0 if offset is None else float(offset)
+        scaled = scale != 1.0 or offset != 0.0
         if scaled:
             notes.append(f"applied scale {scale} and offset {offset}")
         is_float = np.issubdtype(np.dtype(src.dtypes[bidx - 1]), np.floating)
@@ -358,8 +414,9 @@ def demand_from_grid(
                 elif nodata is not None:
                     nod = np.isnan(raw) if (is_float and math.isnan(nodata)) else raw == nodata
                 counts = raw.astype(np.float64) if (need_f64 and raw.dtype != np.float64) else raw
-                if scaled:
-                    counts = counts * (1.0 if scale is None else scale) + (0.0 if offset is None else offset)
+                if scaled:  # counts is our own float64 window here (need_f64): scale it in place
+                    counts *= scale
+                    counts += offset
                 if nod is not None:
                     n_nod = int(np.count_nonzero(nod))
                     if n_nod:
@@ -409,26 +466,24 @@ def demand_from_grid(
                     cells_clip_out += int(np.count_nonzero((counts > 0) & (share < 1.0)))
                     people_clip_out += out_people
                     counts = kept
-                if const_fp is not None:
-                    # plain cells in the grid's own CRS: centres straight into the output
+                if const_fp is not None:  # plain cells in the grid's own CRS: centres straight into the output
                     flat = np.flatnonzero(counts > 0)
-                    if not sized:
-                        out.reserve(_capacity_guess(len(flat), h, height, width, factor))
-                        sized = True
-                    if len(flat):
-                        out.reserve(len(flat), _expected_points(out.n + len(flat), row_off + h, height))
-                        out.add_cells(flat, row_off * width, counts.reshape(-1)[flat], transform, width, const_fp)
+                    made = len(flat)
+                else:
+                    pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
+                    made = len(pts)
+                if not sized:
+                    out.reserve(_capacity_guess(made, h, height, width, factor))
+                    sized = True
+                if made == 0:
+                    continue
+                out.reserve(made, _expected_points(out.n + made, row_off + h, height))
+                if const_fp is not None:
+                    out.add_cells(flat, row_off * width, counts.reshape(-1)[flat], transform, width, const_fp)
                     del flat
                     continue
-                pts = block_points(counts, transform, grid_width=width, row_off=row_off, factor=factor)
-                if not sized:
-                    out.reserve(_capacity_guess(len(pts), h, height, width, factor))
-                    sized = True
-                if len(pts) == 0:
-                    continue
-                out.reserve(len(pts), _expected_points(out.n + len(pts), row_off + h, height))
                 x, y = pts.x, pts.y
-                cx, cy = block_corners(transform, pts.row0, pts.col0, factor)
+                cx, cy = block_corners(transform, pts.row0, pts.col0, factor, grid_shape=(height, width))
                 if transformer is not None:
                     x, y = transformer.transform(x, y)
                     cx, cy = transformer.transform(cx, cy)
@@ -449,7 +504,6 @@ def demand_from_grid(
             notes.append(f"counted {cells_bad} negative or non-finite cell(s) as zero (bad_values='zero')")
 
     xy, weight, unit, footprint = out.finish()
-    people_out = float(weight.sum())
     dropped: dict[str, dict[str, Any]] = {}
     if cells_nodata:
         dropped["nodata"] = {"cells": cells_nodata, "people": 0.0}
@@ -457,27 +511,16 @@ def demand_from_grid(
         dropped["bad_values"] = {"cells": cells_bad, "people": 0.0}
     if clip_geom is not None:
         dropped["outside_clip"] = {"cells": cells_clip_out, "people": people_clip_out}
-    summary: dict[str, Any] = {
-        "source": str(path),
-        "kind": "grid",
-        "band": bidx,
-        "values": values.value,
-        "source_crs": _crs_text(src_crs),
-        "crs": _crs_text(work),
-        "grid_shape": [height, width],
-        "coarsen": factor,
-        "clip_mode": clip_mode.value if clip_geom is not None else None,
-        "window_rows": min(wrows, height),
-        "people_in": people_in,
-        "people_out": people_out,
-        "points": int(len(weight)),
-        "dropped": dropped,
-        "balance": people_in - people_out - sum(d["people"] for d in dropped.values()),
-        "seconds": round(time.perf_counter() - started, 3),
-        "notes": notes,
-    }
-    _log_summary(what, summary)
-    return Demand(xy, weight, unit=unit, footprint=footprint, crs=_crs_text(work), summary=summary)
+    return _demand(
+        what, started, source=path, kind="grid", src_crs=src_crs, work=work, people_in=people_in,
+        xy=xy, weight=weight, unit=unit, footprint=footprint, notes=notes, dropped=dropped,
+        band=bidx,
+        values=values.value,
+        grid_shape=[height, width],
+        coarsen=factor,
+        clip_mode=clip_mode.value if clip_geom is not None else None,
+        window_rows=min(wrows, height),
+    )
 
 
 def _window_box(wt: Any, h: int, w: int) -> tuple[float, float, float, float]:
@@ -598,11 +641,13 @@ def demand_from_areas(
         polygon it may fall outside).  ``inside``: one point per polygon,
         guaranteed inside (shapely.point_on_surface).  ``spread``: each
         polygon's people split over the cells of ``weight_raster`` in
-        proportion to cell value times the cell's area inside the polygon, or
+        proportion to cell value times the share of the cell's area inside
+        the polygon, or
         without a raster over a square lattice of ``spacing_m`` by area; the
         shares of a polygon sum to its total and every point lies inside it.
     weight_raster : path, optional
-        Land-use or building-density grid for ``spread``.  Nodata counts as
+        Land-use or building-density grid for ``spread`` (band 1, values as
+        stored: no scale or offset is applied).  Nodata counts as
         zero weight; a polygon with no weight inside falls back to the lattice
         (when ``spacing_m`` is given) or to one inside point, and says so.
     spacing_m : float or str, optional
@@ -650,7 +695,7 @@ def demand_from_areas(
 
     missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     kinds = shapely.get_type_id(geoms)
-    if (~missing & np.isin(kinds, [0, 4])).all():
+    if (~missing).any() and np.isin(kinds[~missing], [0, 4]).all():  # empty rows do not hide a point layer
         raise LayerError(f"{what}: {source} holds points, not polygons; use demand_from_points (tool demand-areas reads polygons)")
     not_poly = ~missing & ~np.isin(kinds, [3, 6, 7])
     if not_poly.any():
@@ -704,24 +749,10 @@ def demand_from_areas(
                 notes.append(f"{outside} centroid(s) fall outside their polygon (concave shapes); placement='inside' avoids that")
             mode["centroids_outside"] = outside
 
-    people_out = float(np.sum(weight))
-    summary: dict[str, Any] = {
-        "source": str(source),
-        "kind": "areas",
-        "population_field": population,
-        "source_crs": _crs_text(src_crs),
-        "crs": _crs_text(work),
-        "people_in": people_in,
-        "people_out": people_out,
-        "points": int(len(weight)),
-        "dropped": {},
-        "balance": people_in - people_out,
-        **mode,
-        "seconds": round(time.perf_counter() - started, 3),
-        "notes": notes,
-    }
-    _log_summary(f"{what} {source}", summary)
-    return Demand(xy, weight, unit=unit, footprint=footprint, crs=_crs_text(work), summary=summary)
+    return _demand(
+        f"{what} {source}", started, source=source, kind="areas", src_crs=src_crs, work=work, people_in=people_in,
+        xy=xy, weight=weight, unit=unit, footprint=footprint, notes=notes, population_field=population, **mode,
+    )
 
 
 def _spread(
@@ -825,30 +856,34 @@ class _RasterCells:
 
         self.path = path
         self.src = open_raster(path, what="weight raster")
-        self.crs = as_crs(self.src.crs.to_wkt(), "weight raster")
-        self.same = self.crs.equals(work)
-        self.to_src = None if self.same else Transformer.from_crs(work, self.crs, always_xy=True)
-        self.to_work = None if self.same else Transformer.from_crs(self.crs, work, always_xy=True)
-        t = self.src.transform
-        if t.b or t.d:
+        try:  # the dataset is closed on any refusal here, not only on the rotated-grid one
+            t = self.src.transform
+            if t.b or t.d:
+                raise LayerError(f"weight raster {path}: the grid is rotated; warp it north-up (gdalwarp) first")
+            self.crs = as_crs(self.src.crs.to_wkt(), "weight raster")
+            self.same = self.crs.equals(work)
+            self.to_src = None if self.same else Transformer.from_crs(work, self.crs, always_xy=True)
+            self.to_work = None if self.same else Transformer.from_crs(self.crs, work, always_xy=True)
+        except BaseException:
             self.src.close()
-            raise LayerError(f"weight raster {path}: the grid is rotated; warp it north-up (gdalwarp) first")
+            raise
 
     def close(self) -> None:
         self.src.close()
 
     def around(self, poly: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         import shapely
-        from rasterio.windows import Window, from_bounds
+        from rasterio.windows import Window
 
         src = self.src
         geom = poly if self.same else shapely.transform(shapely.segmentize(poly, max(_longest_side(poly) / 50.0, 1e-9)), self._to_src_xy)
         xmin, ymin, xmax, ymax = shapely.bounds(geom)
-        win = from_bounds(xmin, ymin, xmax, ymax, transform=src.transform)
-        col0 = max(int(math.floor(win.col_off)), 0)
-        row0 = max(int(math.floor(win.row_off)), 0)
-        col1 = min(int(math.ceil(win.col_off + win.width)), src.width)
-        row1 = min(int(math.ceil(win.row_off + win.height)), src.height)
+        # pixel span of the bounds through the inverse affine: any orientation (north-up or south-up)
+        cols, rows = apply_affine(~src.transform, np.array([xmin, xmax, xmin, xmax]), np.array([ymin, ymin, ymax, ymax]))
+        col0 = max(int(math.floor(cols.min())), 0)
+        row0 = max(int(math.floor(rows.min())), 0)
+        col1 = min(int(math.ceil(cols.max())), src.width)
+        row1 = min(int(math.ceil(rows.max())), src.height)
         empty = (np.zeros(0, dtype=object), np.zeros((0, 2)), np.zeros(0))
         if col1 <= col0 or row1 <= row0:
             return empty
@@ -949,22 +984,9 @@ def demand_from_points(layer: Any, weight: str | None, *, crs: Any = None) -> De
     w = people[populated][index] / per_feature[index]
     if (per_feature > 1).any():
         notes.append(f"{int((per_feature > 1).sum())} multipoint feature(s) shared their weight equally among their points")
-    people_in = float(people.sum())
-    summary: dict[str, Any] = {
-        "source": str(source),
-        "kind": "points",
-        "weight_field": weight,
-        "source_crs": _crs_text(src_crs),
-        "crs": _crs_text(work),
-        "people_in": people_in,
-        "people_out": float(w.sum()),
-        "points": int(len(w)),
-        "dropped": {},
-        "balance": people_in - float(w.sum()),
-        "features": int(len(frame)),
-        "features_empty": int(len(frame) - len(populated)),
-        "seconds": round(time.perf_counter() - started, 3),
-        "notes": notes,
-    }
-    _log_summary(f"{what} {source}", summary)
-    return Demand(xy, w, unit=populated[index].astype(np.int64), footprint=np.zeros(len(w)), crs=_crs_text(work), summary=summary)
+    return _demand(
+        f"{what} {source}", started, source=source, kind="points", src_crs=src_crs, work=work,
+        people_in=float(people.sum()), xy=xy, weight=w, unit=populated[index].astype(np.int64),
+        footprint=np.zeros(len(w)), notes=notes,
+        weight_field=weight, features=int(len(frame)), features_empty=int(len(frame) - len(populated)),
+    )

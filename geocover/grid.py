@@ -88,8 +88,8 @@ def block_sums(counts: np.ndarray, factor: int) -> tuple[np.ndarray, np.ndarray,
     """
     counts = np.asarray(counts, dtype=np.float64)
     if factor == 1:
-        ones = np.full(counts.shape, 0.5)
-        return counts, counts * ones, counts * ones
+        half = counts * 0.5  # every cell centre is half a pixel from its own corner
+        return counts, half, half.copy()
     padded = _pad_to(counts, factor)
     hb, wb = padded.shape[0] // factor, padded.shape[1] // factor
     cube = padded.reshape(hb, factor, wb, factor)
@@ -212,10 +212,30 @@ def cell_centres(unit: np.ndarray, transform: Any, grid_width: int, out: np.ndar
     return out
 
 
-def block_corners(transform: Any, row0: np.ndarray, col0: np.ndarray, factor: int) -> tuple[np.ndarray, np.ndarray]:
-    """The four corners of each ``factor`` x ``factor`` block, shape (4, n) each for x and y."""
-    rows = np.stack([row0, row0, row0 + factor, row0 + factor]).astype(np.float64)
-    cols = np.stack([col0, col0 + factor, col0, col0 + factor]).astype(np.float64)
+def block_corners(
+    transform: Any,
+    row0: np.ndarray,
+    col0: np.ndarray,
+    factor: int,
+    grid_shape: tuple[int, int] | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """The four corners of each ``factor`` x ``factor`` block, shape (4, n) each for x and y.
+
+    With ``grid_shape`` (rows, cols) a block at the grid's right or bottom
+    edge is cut at the edge: its far corners are those of the cells it holds,
+    not of the padding beyond the grid.
+
+    >>> from affine import Affine
+    >>> block_corners(Affine(1, 0, 0, 0, -1, 0), np.array([0]), np.array([0]), 4, grid_shape=(3, 2))[0].ravel().tolist()
+    [0.0, 2.0, 0.0, 2.0]
+    """
+    row1 = row0 + factor
+    col1 = col0 + factor
+    if grid_shape is not None:
+        row1 = np.minimum(row1, grid_shape[0])
+        col1 = np.minimum(col1, grid_shape[1])
+    rows = np.stack([row0, row0, row1, row1]).astype(np.float64)
+    cols = np.stack([col0, col1, col0, col1]).astype(np.float64)
     return apply_affine(transform, cols, rows)
 
 

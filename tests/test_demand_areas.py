@@ -121,6 +121,22 @@ def test_spread_over_weight_raster_follows_cell_weights(tmp_path):
     np.testing.assert_allclose(cols, np.round(cols), atol=1e-9)
 
 
+def test_south_up_weight_raster_gives_the_same_spread(tmp_path):
+    # the same weights stored bottom row first (positive y pixel size) must spread the same way
+    path, w, transform = _weight_grid(tmp_path)
+    flipped = Affine(100.0, 0.0, transform.c, 0.0, 100.0, transform.f - 100.0 * w.shape[0])
+    south_up = write_raster(tmp_path / "w_south_up.tif", w[::-1].copy(), nodata=-1, transform=flipped, crs=CRS)
+    frame = areas()
+    a = demand_from_areas(frame, "pop", placement="spread", weight_raster=path)
+    b = demand_from_areas(frame, "pop", placement="spread", weight_raster=south_up)
+    order_a = np.lexsort((a.xy[:, 1], a.xy[:, 0], a.unit))
+    order_b = np.lexsort((b.xy[:, 1], b.xy[:, 0], b.unit))
+    np.testing.assert_array_equal(a.unit[order_a], b.unit[order_b])
+    np.testing.assert_allclose(a.xy[order_a], b.xy[order_b], atol=1e-6)
+    np.testing.assert_allclose(a.weight[order_a], b.weight[order_b], rtol=1e-9)
+    check_conserved(b, frame)
+
+
 def test_spread_over_weight_raster_conserves_and_stays_inside(tmp_path):
     path, _, _ = _weight_grid(tmp_path)
     frame = areas()
@@ -217,6 +233,10 @@ def test_points_layer_is_not_areas():
     pts = gpd.GeoDataFrame({"pop": [1.0]}, geometry=[shapely.Point(0, 0)], crs=CRS)
     with pytest.raises(LayerError, match="demand_from_points"):
         demand_from_areas(pts, "pop")
+    # a point layer with a feature of no geometry (and nobody in it) is still recognised as points
+    holey = gpd.GeoDataFrame({"pop": [1.0, 0.0]}, geometry=[shapely.Point(0, 0), None], crs=CRS)
+    with pytest.raises(LayerError, match="demand_from_points"):
+        demand_from_areas(holey, "pop")
 
 
 def test_reads_a_geopackage_layer_in_lonlat_and_chooses_a_local_crs(tmp_path, caplog):

@@ -12,7 +12,7 @@ import pytest
 from affine import Affine
 
 from geocover.demand import demand_from_grid
-from geocover.errors import CRSError, GeocoverError, InputError, ParameterError
+from geocover.errors import CRSError, GeocoverError, InputError, LayerError, ParameterError
 from geocover.grid import apply_affine, ellipsoid_band_area
 
 from test_demand_fixtures import write_raster
@@ -72,6 +72,22 @@ def test_scale_and_offset_applied(tmp_path):
     assert any("scale" in n for n in d.summary["notes"])
 
 
+@pytest.mark.parametrize("dtype", ["float64", "int16"])
+def test_scale_and_offset_over_several_windows(tmp_path, dtype):
+    # float64 windows are scaled in the reused read buffer; nodata is judged on the raw values
+    rng = np.random.default_rng(8)
+    data = rng.integers(0, 30, size=(9, 4)).astype(dtype)
+    data[3, 1] = data[7, 2] = -1
+    path = write_raster(tmp_path / "pop.tif", data, nodata=-1, scale=2.5, offset=0.5)
+    d = demand_from_grid(path, window_rows=2)
+    good = data != -1
+    expected = data.astype(np.float64) * 2.5 + 0.5
+    assert d.total == pytest.approx(float(expected[good].sum()), rel=1e-12)
+    assert sorted(d.unit.tolist()) == np.flatnonzero(good.ravel()).tolist()
+    assert d.summary["dropped"]["nodata"]["cells"] == 2
+    conserved(d)
+
+
 def test_band_choice_and_bad_band(tmp_path):
     data = np.stack([np.ones((3, 3)), np.full((3, 3), 2.0)]).astype(np.float32)
     path = write_raster(tmp_path / "pop.tif", data)
@@ -117,8 +133,9 @@ def test_wrong_choices_list_the_valid_ones(tmp_path):
 
 
 def test_missing_file_is_a_layer_error(tmp_path):
-    with pytest.raises(GeocoverError, match="does not exist"):
+    with pytest.raises(LayerError, match="does not exist"):
         demand_from_grid(tmp_path / "nope.tif")
+    assert issubclass(LayerError, GeocoverError)
 
 
 def _brute_coarsen(data, transform, k):
@@ -151,13 +168,25 @@ def test_coarsening_weighted_centroids_and_footprints(tmp_path, k):
         assert d.weight[i] == pytest.approx(s, rel=1e-6)
         assert d.xy[i, 0] == pytest.approx(x, abs=1e-6)
         assert d.xy[i, 1] == pytest.approx(y, abs=1e-6)
-        # footprint bounds the distance to every corner of the k x k block
+        # footprint bounds the distance to every corner of the k x k block, cut at the grid's edge
         r0, c0 = divmod(u, data.shape[1])
-        cx, cy = apply_affine(UTM, np.array([c0, c0 + k, c0, c0 + k]), np.array([r0, r0, r0 + k, r0 + k]))
+        r1, c1 = min(r0 + k, data.shape[0]), min(c0 + k, data.shape[1])
+        cx, cy = apply_affine(UTM, np.array([c0, c1, c0, c1]), np.array([r0, r0, r1, r1]))
         assert d.footprint[i] == pytest.approx(np.hypot(cx - x, cy - y).max(), rel=1e-9)
-        assert d.footprint[i] >= 0.5 * k * 100 * math.sqrt(2) - 1e-9
+        assert d.footprint[i] >= 0.5 * 100 * math.hypot(r1 - r0, c1 - c0) - 1e-9
+        if (r1 - r0, c1 - c0) == (k, k):
+            assert d.footprint[i] >= 0.5 * k * 100 * math.sqrt(2) - 1e-9
     assert d.total == pytest.approx(float(data.astype(np.float64).sum()), rel=1e-9)
     conserved(d)
+
+
+def test_block_larger_than_the_grid_has_the_grid_as_footprint(tmp_path):
+    # 3 x 5 cells of 100 m, coarsen=10: one block, cut to the 300 m x 500 m grid
+    path = write_raster(tmp_path / "pop.tif", np.ones((3, 5), dtype=np.float32))
+    d = demand_from_grid(path, coarsen=10)
+    assert d.total == 15.0 and d.unit.tolist() == [0]
+    assert d.xy[0].tolist() == [500250.0, 3999850.0]
+    assert d.footprint[0] == pytest.approx(math.hypot(250.0, 150.0), rel=1e-12)  # half the grid's diagonal
 
 
 def test_window_size_does_not_change_the_result(tmp_path):
@@ -188,6 +217,11 @@ def test_geographic_grid_gets_a_local_utm_crs(tmp_path, caplog):
     assert d.xy[0].tolist() == pytest.approx([x, y], abs=1e-6)
     # footprint is about half the cell diagonal in metres (~ 870 m x 1110 m cells)
     assert 600 < d.footprint[0] < 760
+    # exactly: the farthest of the cell's four corners, each carried to UTM by pyproj
+    tr = Transformer.from_crs("EPSG:4326", "EPSG:32626", always_xy=True)
+    lons, lats = apply_affine(transform, np.array([0.0, 1.0, 0.0, 1.0]), np.array([0.0, 0.0, 1.0, 1.0]))
+    cx, cy = tr.transform(lons, lats)
+    assert d.footprint[0] == pytest.approx(np.hypot(cx - x, cy - y).max(), rel=1e-9)
     assert d.summary["source_crs"] == "EPSG:4326"
 
 
@@ -197,6 +231,21 @@ def test_given_crs_must_be_projected(tmp_path):
         demand_from_grid(path, crs="EPSG:4326")
     d = demand_from_grid(path, crs="EPSG:3857")
     assert d.crs == "EPSG:3857" and d.total == 4.0
+
+
+def test_compound_crs_in_feet_is_not_taken_for_metres():
+    from pyproj import CRS
+
+    from geocover.demand import _metre_factor, _working_crs
+
+    # EPSG:2229 is California zone 5 in US survey feet; +5703 adds NAVD88 heights in metres
+    us_foot = 1200.0 / 3937.0  # definition of the US survey foot (NIST)
+    assert _metre_factor(CRS("EPSG:2229+5703")) == pytest.approx(us_foot, rel=1e-12)
+    assert _metre_factor(CRS("EPSG:2229")) == pytest.approx(us_foot, rel=1e-12)
+    assert _metre_factor(CRS("EPSG:32626+5703")) == 1.0
+    # so a local projected CRS in metres is chosen, not a CRSError about the feet
+    work = _working_crs(None, CRS("EPSG:2229+5703"), (-118.0, 34.0))
+    assert work.to_epsg() == 32611
 
 
 def _geod_cell_area(lon0, lat0, dlon, dlat, n=2000):
@@ -368,9 +417,16 @@ def test_rotated_grid_centres_follow_the_affine(tmp_path, k):
         s, x, y = ref[u]
         assert d.weight[i] == pytest.approx(s)
         assert d.xy[i].tolist() == pytest.approx([x, y], abs=1e-6)
+        # farthest corner of the block (cut at the grid's edge), by the affine directly
+        r0, c0 = divmod(u, 4)
+        r1, c1 = min(r0 + k, 3), min(c0 + k, 4)
+        cx, cy = apply_affine(transform, np.array([c0, c1, c0, c1]), np.array([r0, r0, r1, r1]))
+        assert d.footprint[i] == pytest.approx(np.hypot(cx - x, cy - y).max(), rel=1e-9)
+        assert d.footprint[i] >= 50.0 * math.hypot(r1 - r0, c1 - c0) - 1e-6
+        if (r1 - r0, c1 - c0) == (k, k):
+            assert d.footprint[i] >= 50.0 * k * math.sqrt(2) - 1e-6
     if k == 1:  # a rotated square cell still has half its diagonal as footprint
         np.testing.assert_allclose(d.footprint, 50.0 * math.sqrt(2))
-    assert (d.footprint >= 50.0 * k * math.sqrt(2) - 1e-6).all()
 
 
 def test_per_dataset_mask_is_nodata(tmp_path):
