@@ -233,22 +233,26 @@ def _lonlat_centre(frame: "gpd.GeoDataFrame") -> tuple[float, float] | None:
     return float(lon), float(lat)
 
 
-def _working_crs(requested: Any, frame: "gpd.GeoDataFrame") -> "CRS":
+def _working_crs(requested: Any, frame: "gpd.GeoDataFrame", what: str = "candidates") -> "CRS":
+    """The requested CRS, else ``frame``'s when projected in metres, else a local one at its centre."""
     if requested is not None:
         return require_projected(requested, "working CRS (crs)")
     crs = as_crs(frame.crs)
     if not crs.is_geographic:
         try:
-            return require_projected(crs, f"CRS {crs_label(crs)} of the candidates")
+            return require_projected(crs, f"CRS {crs_label(crs)} of the {what}")
         except CRSError:
             pass  # projected but not in metres: fall through to a local metre CRS
     centre = _lonlat_centre(frame)
     if centre is None:
-        raise LayerError("candidates: no feature has a usable geometry, so no working CRS can be chosen")
+        raise LayerError(
+            f"{what}: no feature has a usable geometry, so no working CRS can be chosen; "
+            "give crs='EPSG:...' (a projected CRS in metres) or fix the layer's geometries"
+        )
     if crs.is_geographic:
         return choose_working_crs(None, [crs], centre)
     working = local_projected_crs(*centre)
-    logger.info("candidates' CRS %s is not in metres; working in %s", crs_label(crs), crs_label(working))
+    logger.info("%s' CRS %s is not in metres; working in %s", what, crs_label(crs), crs_label(working))
     return working
 
 
@@ -784,14 +788,20 @@ def screen_sites(
     spacing = None if min_spacing_m is None else parse_distance(min_spacing_m, param="min_spacing_m")
 
     only_existing = candidates is None
+    ex = None
+    if existing is not None:
+        ex, _ = _read(existing, "existing sites", allow_empty=True)
     if only_existing:
-        if existing is None:
+        if ex is None:
             raise ParameterError("candidates: give candidate sites, existing facilities, or both", "candidates")
-        cand, _ = _read(existing, "existing sites", allow_empty=True)
-        cand, cand_name = cand.iloc[0:0].copy(), "candidates"
+        cand, cand_name = ex.iloc[0:0].copy(), "candidates"
     else:
-        cand, cand_name = _read(candidates, "candidates", allow_empty=existing is not None)
-    working = _working_crs(crs, cand)
+        cand, cand_name = _read(candidates, "candidates", allow_empty=ex is not None)
+    # with no candidate features (an audit of today's facilities) the existing ones place the working CRS
+    if len(cand) or ex is None:
+        working = _working_crs(crs, cand)
+    else:
+        working = _working_crs(crs, ex, "existing sites")
     cand = _reproject(cand, working, "candidates", notes)
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
@@ -800,8 +810,7 @@ def screen_sites(
     cand_label = _labels(cand, label_field, "candidate", cand_ids, "candidates layer", required=not only_existing)
     cand_loc = _locate(cand, "candidates", notes)
 
-    if existing is not None:
-        ex, _ = _read(existing, "existing sites", allow_empty=True)
+    if ex is not None:
         ex = _reproject(ex, working, "existing sites", notes)
         ex_ids = _feature_ids(ex)
         ex_cost = _costs(ex, cost_field, 0.0, "existing sites layer", notes, required=False)
@@ -1033,7 +1042,7 @@ def lattice_candidates(
         area = study_area
     else:
         frame, _ = _read(study_area, "study area")
-        working = _working_crs(crs, frame)
+        working = _working_crs(crs, frame, "study area")
         frame = _reproject(frame, working, "study area", notes)
         parts = _repair(np.asarray(frame.geometry.array, dtype=object), "study area", notes)
         area = shapely.union_all(parts[~shapely.is_missing(parts)])

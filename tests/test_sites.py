@@ -329,3 +329,17 @@ def test_bad_parameters_are_named(world):
         screen_sites(f"{world}:candidate_points", cost_field="price")
     with pytest.raises(ParameterError, match="label_field.*no field 'title'"):
         screen_sites(f"{world}:candidate_points", label_field="title")
+
+
+def test_existing_sites_alone_in_degrees_get_a_local_working_crs():
+    # an audit of today's facilities: no candidates, the facilities in lon/lat place the working CRS
+    stations = gpd.GeoDataFrame({"status": ["kept", "optional"]},
+                                geometry=[Point(-27.0, 36.1), Point(-26.99, 36.11)], crs="EPSG:4326")
+    sites, record = screen_sites(None, existing=stations, existing_role_field="status")
+    assert sites.crs == "EPSG:32626" and record.crs == "EPSG:32626"  # UTM zone 26N holds lon -27
+    assert sites.role.tolist() == [SiteRole.KEPT, SiteRole.OPTIONAL]
+    # the same with an empty candidates layer
+    none = gpd.GeoDataFrame(geometry=[], crs="EPSG:4326")
+    sites2, _ = screen_sites(none, existing=stations)
+    assert sites2.crs == "EPSG:32626" and len(sites2) == 2
+    np.testing.assert_allclose(sites2.xy, sites.xy)
