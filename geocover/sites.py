@@ -285,6 +285,24 @@ def _repair(geoms: np.ndarray, what: str, notes: list[str]) -> np.ndarray:
     return geoms
 
 
+def _area_geometry(frame: "gpd.GeoDataFrame", notes: list[str]) -> Any:
+    """The union of a study-area layer (already in the working CRS), repaired; refuses an area of 0."""
+    parts = _repair(np.asarray(frame.geometry.array, dtype=object), "study area", notes)
+    return _checked_area(shapely.union_all(parts[~shapely.is_missing(parts)]))
+
+
+def _checked_area(area: Any) -> Any:
+    """A study area, repaired when invalid (a bow tie's own area is 0 before repair); refuses an area of 0."""
+    if area is not None and not area.is_empty and not area.is_valid:
+        area = shapely.make_valid(area)
+    if area is None or area.is_empty or area.area <= 0:
+        raise LayerError(
+            "study area: it has no area (no polygon with an area of more than 0); "
+            "give a polygon layer or geometry covering the place to study"
+        )
+    return area
+
+
 @dataclass
 class _Located:
     """Representative points and footprints of a site layer, in the working CRS."""
@@ -860,12 +878,10 @@ def screen_sites(
     # study area
     if study_area is not None:
         if isinstance(study_area, shapely.Geometry):
-            area_geom, area_name = study_area, "study_area"
+            area_geom, area_name = _checked_area(study_area), "study_area"
         else:
             area_frame, area_name = _read(study_area, "study area")
-            area_frame = _reproject(area_frame, working, "study area", notes)
-            parts = _repair(np.asarray(area_frame.geometry.array, dtype=object), "study area", notes)
-            area_geom = shapely.union_all(parts[~shapely.is_missing(parts)])
+            area_geom = _area_geometry(_reproject(area_frame, working, "study area", notes), notes)
         shapely.prepare(area_geom)
         inside = np.zeros(total, dtype=bool)
         inside[usable] = shapely.covers(area_geom, shapely.points(xy[usable]))
@@ -1039,17 +1055,11 @@ def lattice_candidates(
         if crs is None:
             raise CRSError("lattice_candidates: a bare geometry as study area needs crs='EPSG:...'")
         working = require_projected(crs, "working CRS (crs)")
-        area = study_area
+        area = _checked_area(study_area)
     else:
         frame, _ = _read(study_area, "study area")
         working = _working_crs(crs, frame, "study area")
-        frame = _reproject(frame, working, "study area", notes)
-        parts = _repair(np.asarray(frame.geometry.array, dtype=object), "study area", notes)
-        area = shapely.union_all(parts[~shapely.is_missing(parts)])
-    if area is None or area.is_empty or area.area <= 0:
-        raise LayerError("study area: it has no area, so no lattice can be laid over it")
-    if not area.is_valid:
-        area = shapely.make_valid(area)
+        area = _area_geometry(_reproject(frame, working, "study area", notes), notes)
     minx, miny, maxx, maxy = area.bounds
     dy = spacing if kind is LatticeShape.SQUARE else spacing * math.sqrt(3.0) / 2.0
     n_rows = int(math.floor((maxy - miny) / dy + 0.5))

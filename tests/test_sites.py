@@ -343,3 +343,22 @@ def test_existing_sites_alone_in_degrees_get_a_local_working_crs():
     sites2, _ = screen_sites(none, existing=stations)
     assert sites2.crs == "EPSG:32626" and len(sites2) == 2
     np.testing.assert_allclose(sites2.xy, sites.xy)
+
+
+def test_a_study_area_without_area_is_refused_not_an_everything_outside():
+    from geocover.errors import LayerError
+
+    cands = gpd.GeoDataFrame(geometry=[Point(50, 50)], crs=CRS)
+    no_geometry = gpd.GeoDataFrame(geometry=[None], crs=CRS)
+    with pytest.raises(LayerError, match="study area: it has no area"):
+        screen_sites(cands, study_area=no_geometry)
+    with pytest.raises(LayerError, match="study area: it has no area"):
+        screen_sites(cands, study_area=shapely.LineString([(0, 0), (100, 100)]))
+
+
+def test_an_invalid_bare_study_area_is_repaired():
+    bowtie = Polygon([(0, 0), (100, 100), (100, 0), (0, 100)])  # self-intersecting
+    cands = gpd.GeoDataFrame(geometry=[Point(20, 50), Point(80, 50), Point(50, 20)], crs=CRS)
+    _, record = screen_sites(cands, study_area=bowtie)
+    # make_valid gives the two triangles meeting at (50, 50): (50, 20) is in neither
+    assert record.verdict.tolist() == ["kept", "kept", "outside"]
