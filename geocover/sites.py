@@ -801,9 +801,15 @@ def screen_sites(
     if land_use is not None and not isinstance(land_use, LandUseMask):
         raise ParameterError(f"land_use: expected LandUseMask(...), got {type(land_use).__name__}", "land_use")
     default_role = _role(existing_role, "existing_role")
-    if not (math.isfinite(float(default_cost)) and float(default_cost) >= 0):
-        raise ParameterError(f"default_cost: must be 0 or more, got {default_cost!r}", "default_cost")
+    try:
+        cost_ok = math.isfinite(float(default_cost)) and float(default_cost) >= 0
+    except (TypeError, ValueError):
+        cost_ok = False
+    if not cost_ok:
+        raise ParameterError(f"default_cost: must be a number of 0 or more, got {default_cost!r}", "default_cost")
     spacing = None if min_spacing_m is None else parse_distance(min_spacing_m, param="min_spacing_m")
+    if spacing is not None and not (math.isfinite(spacing) and spacing >= 0):  # before any layer is read
+        raise ParameterError(f"min_spacing_m: must be a distance of 0 m or more, got {min_spacing_m!r}", "min_spacing_m")
 
     only_existing = candidates is None
     ex = None

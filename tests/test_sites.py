@@ -362,3 +362,11 @@ def test_an_invalid_bare_study_area_is_repaired():
     _, record = screen_sites(cands, study_area=bowtie)
     # make_valid gives the two triangles meeting at (50, 50): (50, 20) is in neither
     assert record.verdict.tolist() == ["kept", "kept", "outside"]
+
+
+def test_bad_cost_and_spacing_parameters_are_named_before_reading(tmp_path):
+    missing = tmp_path / "not_there.gpkg"  # never read: the parameters fail first
+    with pytest.raises(ParameterError, match="default_cost: must be a number"):
+        screen_sites(missing, default_cost="cheap")
+    with pytest.raises(ParameterError, match="min_spacing_m: must be a distance of 0 m or more"):
+        screen_sites(missing, min_spacing_m=-3)
