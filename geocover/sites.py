@@ -314,10 +314,12 @@ class _Located:
 
 
 def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
-    geoms = np.asarray(frame.geometry.array, dtype=object)
-    geoms = _repair(geoms, what, notes)
+    raw = np.asarray(frame.geometry.array, dtype=object)
+    geoms = _repair(raw, what, notes)
     n = len(geoms)
     types = shapely.get_type_id(geoms)
+    # a polygon that make_valid turned into lines or points had no area to begin with
+    collapsed = np.isin(shapely.get_type_id(raw), _POLYGON_TYPES) & ~np.isin(types, _POLYGON_TYPES)
     missing = shapely.is_missing(geoms)
     empty = np.zeros(n, dtype=bool)
     empty[~missing] = shapely.is_empty(geoms[~missing])
@@ -325,6 +327,7 @@ def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
     is_poly = np.isin(types, _POLYGON_TYPES)
     reason = np.full(n, "", dtype=object)
     reason[~(is_point | is_poly)] = "geometry is not a point or a polygon"
+    reason[collapsed] = "polygon with no area"
     reason[empty] = "empty geometry"
     reason[missing] = "no geometry"
     usable = reason == ""

@@ -370,3 +370,11 @@ def test_bad_cost_and_spacing_parameters_are_named_before_reading(tmp_path):
         screen_sites(missing, default_cost="cheap")
     with pytest.raises(ParameterError, match="min_spacing_m: must be a distance of 0 m or more"):
         screen_sites(missing, min_spacing_m=-3)
+
+
+def test_a_polygon_with_no_area_is_called_so_after_repair():
+    flat = Polygon([(0, 0), (10, 10), (20, 20), (0, 0)])  # all on one line: make_valid gives lines
+    cands = gpd.GeoDataFrame(geometry=[flat, Point(5, 5)], crs=CRS)
+    _, record = screen_sites(cands)
+    assert record.verdict.tolist() == ["invalid", "kept"]
+    assert record.rule[0] == "polygon with no area"
