@@ -48,7 +48,8 @@ from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, req
 from .choices import LatticeShape
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
-from .layers import LayerRef, open_raster, parse_layer_ref, read_vector, to_crs
+from .landuse import land_use_shares
+from .layers import LayerRef, parse_layer_ref, read_vector, to_crs
 from .units import parse_distance, parse_fraction
 from .values import ScreeningRecord, SiteRole, Sites, Verdict
 
@@ -457,149 +458,6 @@ def _group_min(index: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
     return out
 
 
-def _affine(t: Any, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Apply an affine transform to coordinate arrays."""
-    return t.a * x + t.b * y + t.c, t.d * x + t.e * y + t.f
-
-
-def _cell_polygons(transform: Any, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
-    """Cell outlines (any affine transform) for cells at ``rows``, ``cols``."""
-    a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
-    corners_c = np.stack([cols, cols + 1, cols + 1, cols, cols], axis=1).astype(np.float64)
-    corners_r = np.stack([rows, rows, rows + 1, rows + 1, rows], axis=1).astype(np.float64)
-    x = a * corners_c + b * corners_r + c
-    y = d * corners_c + e * corners_r + f
-    return shapely.polygons(np.stack([x, y], axis=2))
-
-
-_MAX_WINDOW_CELLS = 50_000_000  # read the raster in tiles of sites beyond this many cells at once
-_TILE_CELLS = 4096  # side of such a tile, in cells
-
-
-def _land_use(
-    mask: LandUseMask, located: _Located, rows: np.ndarray, crs: "CRS", notes: list[str]
-) -> tuple[np.ndarray, np.ndarray]:
-    """Share of each footprint (at ``rows``) on allowed classes, and the main disallowed class (-1).
-
-    Point sites: 1 or 0 by the class of the cell under the point (the
-    cell below / right of it when the point is on a cell edge).  Parcels:
-    the exact area of the parcel on each cell under its bounding box
-    (cell polygon intersection), summed over allowed cells and divided by
-    the parcel's whole area, so area off the raster or on nodata counts as
-    not allowed.  The raster is read once under all sites, or in tiles of
-    sites when that window is very large.
-    """
-    import geopandas as gpd
-    from rasterio.errors import RasterioIOError
-    from rasterio.windows import Window
-
-    n = len(located.xy)
-    share = np.full(n, np.nan)
-    worst = np.full(n, -1, dtype=np.int64)
-    if not len(rows):
-        return share, worst
-    with open_raster(mask.raster, "land-use raster") as src:
-        shapes = located.footprint[rows]
-        if not as_crs(src.crs).equals(crs):
-            notes.append(f"land-use raster: sites reprojected to its CRS {crs_label(src.crs)} to read cells")
-            shapes = np.asarray(gpd.GeoSeries(shapes, crs=crs).to_crs(src.crs).array, dtype=object)
-        inv = ~src.transform
-        bounds = shapely.bounds(shapes)
-        cx = bounds[:, [0, 2, 0, 2]]
-        cy = bounds[:, [1, 1, 3, 3]]
-        colf, rowf = _affine(inv, cx, cy)
-        r0 = np.floor(rowf.min(axis=1)).astype(np.int64)
-        r1 = np.floor(rowf.max(axis=1)).astype(np.int64)
-        c0 = np.floor(colf.min(axis=1)).astype(np.int64)
-        c1 = np.floor(colf.max(axis=1)).astype(np.int64)
-        span = (int(r1.max()) - int(r0.min()) + 1) * (int(c1.max()) - int(c0.min()) + 1)
-        if span <= _MAX_WINDOW_CELLS:
-            groups = [np.arange(len(rows))]
-        else:
-            tile = _TILE_CELLS
-            key = (np.clip(r0, 0, None) // tile) * (src.width // tile + 1) + np.clip(c0, 0, None) // tile
-            order = np.argsort(key, kind="stable")
-            groups = np.split(order, np.flatnonzero(np.diff(key[order])) + 1)
-        point_all = located.is_point[rows]
-        for group in groups:
-            # the window under this group's sites, clipped to the raster
-            wr0, wc0 = max(int(r0[group].min()), 0), max(int(c0[group].min()), 0)
-            wr1 = min(int(r1[group].max()), src.height - 1)
-            wc1 = min(int(c1[group].max()), src.width - 1)
-            if wr1 < wr0 or wc1 < wc0:
-                data = np.ma.masked_all((1, 1), dtype=np.int64)
-                wr0 = wc0 = wr1 = wc1 = -(10**12)  # nothing is on the raster
-            else:
-                try:
-                    data = src.read(1, window=Window(wc0, wr0, wc1 - wc0 + 1, wr1 - wr0 + 1), masked=True)
-                except RasterioIOError as exc:  # a truncated file opens but cannot be read
-                    raise LayerError(
-                        f"land-use raster {mask.raster}: cannot read its cells ({exc}); the file looks truncated or "
-                        "damaged: is it a complete GeoTIFF? Copy or export it again"
-                    ) from None
-            codes_all = np.asarray(np.ma.getdata(data))
-            invalid_all = np.ma.getmaskarray(data)
-            if np.issubdtype(codes_all.dtype, np.floating):
-                invalid_all = invalid_all | ~np.isfinite(codes_all)
-
-            def cell_values(r: np.ndarray, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-                """Class codes (-1 off the raster or nodata) and "allowed" flags."""
-                on = (r >= wr0) & (r <= wr1) & (c >= wc0) & (c <= wc1)
-                values = np.full(len(r), -1, dtype=np.int64)
-                ok = np.zeros(len(r), dtype=bool)
-                if on.any():
-                    rr, cc = r[on] - wr0, c[on] - wc0
-                    valid = ~invalid_all[rr, cc]
-                    codes = np.where(valid, codes_all[rr, cc], -1).astype(np.int64)
-                    values[on] = codes
-                    ok[on] = valid & mask.allows(codes)
-                return values, ok
-
-            point = group[point_all[group]]
-            if len(point):
-                xy = shapely.get_coordinates(shapely.point_on_surface(shapes[point]))
-                pc, pr = _affine(inv, xy[:, 0], xy[:, 1])
-                values, ok = cell_values(np.floor(pr).astype(np.int64), np.floor(pc).astype(np.int64))
-                share[rows[point]] = ok.astype(np.float64)
-                worst[rows[point]] = np.where(ok, -1, values)
-            poly = group[~point_all[group]]
-            if len(poly):
-                _parcel_shares(poly, shapes, r0, r1, c0, c1, src.transform, cell_values, rows, share, worst)
-    return share, worst
-
-
-def _parcel_shares(
-    poly: np.ndarray, shapes: np.ndarray, r0: np.ndarray, r1: np.ndarray, c0: np.ndarray, c1: np.ndarray,
-    transform: Any, cell_values: Any, rows: np.ndarray, share: np.ndarray, worst: np.ndarray,
-) -> None:
-    """Exact area of each parcel on each cell under its bounding box, summed over allowed cells."""
-    counts = (r1[poly] - r0[poly] + 1) * (c1[poly] - c0[poly] + 1)
-    owner = np.repeat(poly, counts)
-    start = np.repeat(np.cumsum(counts) - counts, counts)
-    k = np.arange(len(owner)) - start
-    width = np.repeat(c1[poly] - c0[poly] + 1, counts)
-    cell_r = np.repeat(r0[poly], counts) + k // width
-    cell_c = np.repeat(c0[poly], counts) + k % width
-    area = np.zeros(len(owner))
-    chunk = 200_000
-    for s in range(0, len(owner), chunk):
-        sl = slice(s, s + chunk)
-        cells = _cell_polygons(transform, cell_r[sl], cell_c[sl])
-        area[sl] = shapely.area(shapely.intersection(shapes[owner[sl]], cells))
-    values, ok = cell_values(cell_r, cell_c)
-    good = np.bincount(owner, weights=np.where(ok, area, 0.0), minlength=len(rows))
-    share[rows[poly]] = np.clip(good[poly] / shapely.area(shapes[poly]), 0.0, 1.0)
-    # the disallowed class covering the most area, for the record
-    bad = ~ok & (area > 0)
-    if bad.any():
-        keys = np.stack([owner[bad], values[bad]], axis=1)
-        pairs, inverse = np.unique(keys, axis=0, return_inverse=True)
-        sums = np.bincount(inverse.ravel(), weights=area[bad])
-        order = np.lexsort((-sums, pairs[:, 0]))
-        firsts = order[np.unique(pairs[order, 0], return_index=True)[1]]
-        worst[rows[pairs[firsts, 0]]] = pairs[firsts, 1]
-
-
 # --------------------------------------------------------------------------- helpers
 
 
@@ -786,8 +644,6 @@ def screen_sites(
         When no candidate is left after screening (the message says which
         rule removed how many), or a layer, field or value is unusable.
     """
-    import geopandas as gpd
-
     notes: list[str] = []
     rules = [exclude] if isinstance(exclude, Exclusion) else list(exclude)
     names = [str(getattr(rule, "name", "")) for rule in rules]
@@ -912,7 +768,7 @@ def screen_sites(
     # land use
     share = np.full(total, np.nan)
     if land_use is not None:
-        share, worst = _land_use(land_use, located, rows, working, notes)
+        share, worst = land_use_shares(land_use, located.footprint, located.is_point, rows, working, notes)
         fails = usable & (share < land_use.min_share - 1e-12)
         text = np.where(
             located.is_point,

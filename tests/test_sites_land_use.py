@@ -7,6 +7,9 @@ against rasterio's ``DatasetReader.sample``.
 
 from __future__ import annotations
 
+import logging
+import re
+
 import geopandas as gpd
 import numpy as np
 import pytest
@@ -75,8 +78,8 @@ def test_parcel_shares_agree_with_exactextract(land_use):
     assert record.rule[record.verdict == "land_use"][0] == "less than 50% of the parcel on land use in classes (1, 2, 3)"
 
 
-def test_tiled_reads_give_the_same_answer(land_use, monkeypatch):
-    import geocover.sites as sites_module
+def test_tiled_reads_give_the_same_answer(land_use, monkeypatch, caplog):
+    import geocover.landuse as landuse_module
 
     path, _ = land_use
     parcels = _parcels(seed=8)
@@ -87,9 +90,13 @@ def test_tiled_reads_give_the_same_answer(land_use, monkeypatch):
     )
     mask = LandUseMask(path, allowed=(2, 4, 6), min_share=0.3)
     _, whole = screen_sites(both, land_use=mask)
-    monkeypatch.setattr(sites_module, "_MAX_WINDOW_CELLS", 10)
-    monkeypatch.setattr(sites_module, "_TILE_CELLS", 7)
-    _, tiled = screen_sites(both, land_use=mask)
+    monkeypatch.setattr(landuse_module, "_MAX_WINDOW_CELLS", 10)
+    monkeypatch.setattr(landuse_module, "_TILE_CELLS", 7)
+    with caplog.at_level(logging.DEBUG, logger="geocover.landuse"):
+        _, tiled = screen_sites(both, land_use=mask)
+    # the tiled path really ran (a patch of the wrong module would compare the whole read with itself)
+    windows = [int(m) for r in caplog.records for m in re.findall(r"read in (\d+) window", r.getMessage())]
+    assert windows and windows[0] > 1
     np.testing.assert_allclose(tiled.land_use_share, whole.land_use_share, atol=1e-12)
     assert tiled.verdict.tolist() == whole.verdict.tolist()
     assert tiled.feature.tolist() == whole.feature.tolist()
