@@ -260,17 +260,6 @@ def _comparisons(node: _Node) -> list[_Compare]:
     return _comparisons(node.operand)
 
 
-def _fields(node: _Node, out: list[str]) -> None:
-    if isinstance(node, _Compare):
-        if node.field not in out:
-            out.append(node.field)
-    elif isinstance(node, _Bool):
-        _fields(node.left, out)
-        _fields(node.right, out)
-    else:
-        _fields(node.operand, out)
-
-
 # --------------------------------------------------------------------------- evaluation
 
 
@@ -288,9 +277,7 @@ class Filter:
     @property
     def fields(self) -> tuple[str, ...]:
         """The field names the filter reads, in order of first use."""
-        out: list[str] = []
-        _fields(self.tree, out)
-        return tuple(out)
+        return tuple(dict.fromkeys(node.field for node in _comparisons(self.tree)))
 
     def mask(self, frame: Any, layer: str = "layer") -> np.ndarray:
         """Boolean array: which rows of ``frame`` the filter selects.

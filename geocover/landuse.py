@@ -36,11 +36,9 @@ def _affine(t: Any, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarra
 
 def _cell_polygons(transform: Any, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
     """Cell outlines (any affine transform) for cells at ``rows``, ``cols``."""
-    a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
     corners_c = np.stack([cols, cols + 1, cols + 1, cols, cols], axis=1).astype(np.float64)
     corners_r = np.stack([rows, rows, rows + 1, rows + 1, rows], axis=1).astype(np.float64)
-    x = a * corners_c + b * corners_r + c
-    y = d * corners_c + e * corners_r + f
+    x, y = _affine(transform, corners_c, corners_r)
     return shapely.polygons(np.stack([x, y], axis=2))
 
 

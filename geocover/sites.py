@@ -762,8 +762,6 @@ def screen_sites(
         hits = _screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m)
         nearest = np.minimum(nearest, hits.nearest)
         reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
-    if not rules:
-        nearest[:] = np.inf
 
     # land use
     share = np.full(total, np.nan)
