@@ -20,7 +20,9 @@ Grammar::
     field      := identifier | `back-quoted name`
     value      := number | 'string' | "string" | true | false
 
-Keywords are case-insensitive.  A missing value (null / NaN) matches no
+Keywords are case-insensitive; field names are not.  Inside a quoted text a
+backslash escapes the next character (``'it\\'s'``, ``'C:\\\\data'``); SQL's
+doubled quote (``'it''s'``) is refused with a hint.  A missing value (null / NaN) matches no
 comparison (``==``, ``!=``, ``<``, ``in``, ``not in`` are all false on it);
 only ``is null`` finds it.  ``not`` simply negates, so ``not depth_m > 1``
 is true on a missing depth while ``depth_m <= 1`` is not.
@@ -164,8 +166,17 @@ class _Parser:
         if self.peek().kind == "end":
             raise _error(self.text, 0, "the filter is empty", self.param)
         node = self.or_expr()
-        if self.peek().kind != "end":
-            raise self.fail(self.peek(), "'and', 'or' or the end of the filter")
+        tok = self.peek()
+        if tok.kind != "end":
+            before = self.tokens[self.i - 1]
+            if tok.kind == "string" and before.kind == "string":  # 'it''s': SQL's doubled quote
+                raise _error(
+                    self.text, tok.pos,
+                    "two quoted texts in a row; to put a quote inside a text write it as \\' or \\\" "
+                    "(or quote with the other kind: \"it's\")",
+                    self.param,
+                )
+            raise self.fail(tok, "'and', 'or' or the end of the filter")
         return node
 
     def or_expr(self) -> _Node:
@@ -299,9 +310,11 @@ class Filter:
         for node in _comparisons(self.tree):
             name = node.field
             if name not in frame.columns:
+                alike = [c for c in columns if c.lower() == name.lower()]
+                hint = f" (field names are case-sensitive: did you mean {alike[0]!r}?)" if alike else ""
                 raise _error(
                     self.text, node.pos,
-                    f"layer {layer} has no field {name!r}; its fields are: {', '.join(columns) or 'none'}",
+                    f"layer {layer} has no field {name!r}{hint}; its fields are: {', '.join(columns) or 'none'}",
                     self.param,
                 )
         return np.asarray(self._eval(self.tree, frame, layer), dtype=bool)
