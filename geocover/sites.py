@@ -216,7 +216,7 @@ def _read(value: Any, what: str, allow_empty: bool = False) -> tuple["gpd.GeoDat
 
 
 def _feature_ids(frame: "gpd.GeoDataFrame") -> np.ndarray:
-    """The frame's integer index (the row as read, or the caller's ids), else row positions."""
+    """The frame's integer index (the fid when read from a file, or the caller's ids), else row positions."""
     index = frame.index
     if np.issubdtype(index.dtype, np.integer):
         return np.asarray(index, dtype=np.int64)
