@@ -378,3 +378,31 @@ def test_a_polygon_with_no_area_is_called_so_after_repair():
     _, record = screen_sites(cands)
     assert record.verdict.tolist() == ["invalid", "kept"]
     assert record.rule[0] == "polygon with no area"
+
+
+def test_holes_and_multipolygons_are_screened_by_their_real_footprint():
+    # a zone with a hole (an island of dry land), a parcel with a hole around a small zone, a two-part parcel
+    ring_zone = box(0, 0, 300, 300).difference(box(100, 100, 200, 200))
+    small_zone = box(1000, 1000, 1010, 1010)
+    zones = gpd.GeoDataFrame(geometry=[ring_zone, small_zone], crs=CRS)
+    donut = box(950, 950, 1060, 1060).difference(box(980, 980, 1030, 1030))  # the small zone sits in its hole
+    two_part = shapely.MultiPolygon([box(500, 500, 520, 520), box(290, 150, 295, 155)])  # 2nd part in the ring
+    cands = gpd.GeoDataFrame(
+        geometry=[Point(150, 150), Point(125, 150), donut, two_part, box(600, 600, 620, 620)], crs=CRS
+    )
+    _, rec0 = screen_sites(cands, exclude=[Exclusion(zones, name="zones")])
+    _, rec30 = screen_sites(cands, exclude=[Exclusion(zones, setback_m=30, name="zones")])
+    # independent: GEOS distance / intersects on the raw geometries
+    raw = np.asarray(cands.geometry.array)
+    zg = np.asarray(zones.geometry.array)
+    d = shapely.distance(raw[:, None], zg[None, :]).min(axis=1)
+    touches = shapely.intersects(raw[:, None], zg[None, :]).any(axis=1)
+    assert rec0.verdict.tolist() == np.where(touches, "excluded", "kept").tolist()
+    assert rec30.verdict.tolist() == np.where(d < 30, "excluded", "kept").tolist()
+    # the point in the island is kept with no setback, 50 m from the shore; the one 25 m from it is not kept at 30
+    assert rec0.verdict.tolist() == ["kept", "kept", "kept", "excluded", "kept"]
+    assert rec30.verdict.tolist() == ["kept", "excluded", "excluded", "excluded", "kept"]
+    np.testing.assert_allclose(rec0.nearest_exclusion_m, d, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(rec0.nearest_exclusion_m[[0, 1, 2]], [50.0, 25.0, 20.0])
+    # the two-part parcel stands at a point inside one of its parts
+    assert shapely.contains_xy(two_part, *rec0.xy[3])
