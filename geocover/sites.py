@@ -780,7 +780,13 @@ def screen_sites(
         role = SiteRole(int(ex_role[i]))
         tag = f"existing ({'kept' if role == SiteRole.KEPT else 'optional'})"
         if verdict[i] != Verdict.KEPT.value:
-            message = f"existing site {ex_label[i]} is kept although it is {rule_text[i]} ({layer[i]}, feature {feature[i]})"
+            if verdict[i] == Verdict.EXCLUDED.value:
+                where = f"{layer[i]}, feature {feature[i]}"
+            elif verdict[i] == Verdict.LAND_USE.value:  # the feature is the class code there, -1 for none
+                where = f"{layer[i]}, {'nodata or off the raster' if feature[i] < 0 else f'class {feature[i]}'}"
+            else:
+                where = str(layer[i])
+            message = f"existing site {ex_label[i]} is kept although it is {rule_text[i]} ({where})"
             logger.warning(message)
             notes.append(message)
             rule_text[i] = f"{tag}, flagged: {rule_text[i]}"

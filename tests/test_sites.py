@@ -406,3 +406,24 @@ def test_holes_and_multipolygons_are_screened_by_their_real_footprint():
     np.testing.assert_allclose(rec0.nearest_exclusion_m[[0, 1, 2]], [50.0, 25.0, 20.0])
     # the two-part parcel stands at a point inside one of its parts
     assert shapely.contains_xy(two_part, *rec0.xy[3])
+
+
+def test_flagged_existing_sites_name_the_zone_feature_or_the_class(tmp_path):
+    import rasterio
+    from rasterio.transform import from_origin
+
+    from geocover.sites import LandUseMask
+
+    path = tmp_path / "lu.tif"
+    with rasterio.open(path, "w", driver="GTiff", width=2, height=1, count=1, dtype="uint8", crs=CRS,
+                       transform=from_origin(0, 10, 10, 10), nodata=0) as dst:
+        dst.write(np.array([[1, 6]], dtype=np.uint8), 1)
+    stations = gpd.GeoDataFrame({"name": ["west", "east", "far"]},
+                                geometry=[Point(5, 5), Point(15, 5), Point(500, 5)], crs=CRS)
+    zone = gpd.GeoDataFrame(geometry=[box(0, 0, 8, 8)], crs=CRS, index=[7])
+    _, record = screen_sites(None, existing=stations, existing_label_field="name",
+                             exclude=[Exclusion(zone, name="flood")], land_use=LandUseMask(path, allowed=(1,)))
+    notes = " | ".join(record.notes)
+    assert "west is kept although it is inside flood (flood, feature 7)" in notes
+    assert "east is kept although it is not on land use in classes (1) (lu, class 6)" in notes
+    assert "far is kept although it is not on land use in classes (1) (lu, nodata or off the raster)" in notes
