@@ -57,7 +57,7 @@ def land_use_shares(
 
     Point sites: 1 or 0 by the class of the cell under the point (the
     cell below / right of it when the point is on a cell edge).  Parcels:
-    the exact area of the parcel on each cell under its bounding box
+    the exact area of the parcel on each raster cell under its bounding box
     (cell polygon intersection), summed over allowed cells and divided by
     the parcel's whole area, so area off the raster or on nodata counts as
     not allowed.  The raster is read once under all sites, or in tiles of
@@ -139,22 +139,32 @@ def land_use_shares(
                 worst[rows[point]] = np.where(ok, -1, values)
             poly = group[~point_all[group]]
             if len(poly):
-                _parcel_shares(poly, shapes, r0, r1, c0, c1, src.transform, cell_values, rows, share, worst)
+                _parcel_shares(poly, shapes, r0, r1, c0, c1, src.transform, (src.height, src.width),
+                               cell_values, rows, share, worst)
     return share, worst
 
 
 def _parcel_shares(
     poly: np.ndarray, shapes: np.ndarray, r0: np.ndarray, r1: np.ndarray, c0: np.ndarray, c1: np.ndarray,
-    transform: Any, cell_values: Any, rows: np.ndarray, share: np.ndarray, worst: np.ndarray,
+    transform: Any, shape: tuple[int, int], cell_values: Any, rows: np.ndarray, share: np.ndarray, worst: np.ndarray,
 ) -> None:
-    """Exact area of each parcel on each cell under its bounding box, summed over allowed cells."""
-    counts = (r1[poly] - r0[poly] + 1) * (c1[poly] - c0[poly] + 1)
+    """Exact area of each parcel on each raster cell under its bounding box, summed over allowed cells.
+
+    Only cells on the raster are cut (area off the raster is never allowed,
+    so a parcel far over the edge costs nothing extra); that area is the
+    parcel's area less its area on the raster, and counts as class -1.
+    """
+    height, width_all = shape
+    lo_r, hi_r = np.clip(r0[poly], 0, None), np.minimum(r1[poly], height - 1)
+    lo_c, hi_c = np.clip(c0[poly], 0, None), np.minimum(c1[poly], width_all - 1)
+    n_r, n_c = np.maximum(hi_r - lo_r + 1, 0), np.maximum(hi_c - lo_c + 1, 0)
+    counts = n_r * n_c
     owner = np.repeat(poly, counts)
     start = np.repeat(np.cumsum(counts) - counts, counts)
     k = np.arange(len(owner)) - start
-    width = np.repeat(c1[poly] - c0[poly] + 1, counts)
-    cell_r = np.repeat(r0[poly], counts) + k // width
-    cell_c = np.repeat(c0[poly], counts) + k % width
+    width = np.repeat(n_c, counts)
+    cell_r = np.repeat(lo_r, counts) + k // np.maximum(width, 1)
+    cell_c = np.repeat(lo_c, counts) + k % np.maximum(width, 1)
     area = np.zeros(len(owner))
     chunk = 200_000
     for s in range(0, len(owner), chunk):
@@ -162,8 +172,17 @@ def _parcel_shares(
         cells = _cell_polygons(transform, cell_r[sl], cell_c[sl])
         area[sl] = shapely.area(shapely.intersection(shapes[owner[sl]], cells))
     values, ok = cell_values(cell_r, cell_c)
+    whole = shapely.area(shapes[poly])
     good = np.bincount(owner, weights=np.where(ok, area, 0.0), minlength=len(rows))
-    share[rows[poly]] = np.clip(good[poly] / shapely.area(shapes[poly]), 0.0, 1.0)
+    share[rows[poly]] = np.clip(good[poly] / whole, 0.0, 1.0)
+    # the area off the raster, as one more disallowed piece of class -1 per parcel
+    on_raster = np.bincount(owner, weights=area, minlength=len(rows))[poly]
+    off = whole - on_raster
+    over = off > 1e-9 * whole
+    owner = np.concatenate([owner, poly[over]])
+    values = np.concatenate([values, np.full(int(over.sum()), -1, dtype=values.dtype)])
+    ok = np.concatenate([ok, np.zeros(int(over.sum()), dtype=bool)])
+    area = np.concatenate([area, off[over]])
     # the disallowed class covering the most area, for the record
     bad = ~ok & (area > 0)
     if bad.any():

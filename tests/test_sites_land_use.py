@@ -12,6 +12,7 @@ import re
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import pytest
 import rasterio
 import shapely
@@ -166,3 +167,27 @@ def test_land_use_mask_parameters():
     assert LandUseMask("x.tif", allowed=3, min_share="75 %").min_share == 0.75
     with pytest.raises(ParameterError, match="min_share"):
         LandUseMask("x.tif", allowed=(1,), min_share=0)
+
+
+def test_parcels_over_the_edge_count_the_area_off_the_raster_as_class_minus_one(tmp_path):
+    # 10 x 10 cells of 10 m: class 1 everywhere but column 9 (class 6); closed-form areas of boxes
+    path = tmp_path / "edge.tif"
+    classes = np.ones((10, 10), dtype=np.uint8)
+    classes[:, 9] = 6
+    with rasterio.open(path, "w", driver="GTiff", width=10, height=10, count=1, dtype="uint8", crs=CRS,
+                       transform=from_origin(X0, Y0 + 100, 10, 10), nodata=0) as dst:
+        dst.write(classes, 1)
+    cands = gpd.GeoDataFrame(geometry=[
+        box(X0 + 85, Y0 + 50, X0 + 115, Y0 + 60),        # 5 m on class 1, 10 m on class 6, 15 m off: off wins
+        box(X0 + 70, Y0 + 50, X0 + 102, Y0 + 60),        # 20 m on 1, 10 m on 6, 2 m off: class 6 wins
+        box(X0 + 95, Y0 + 50, X0 + 50_095, Y0 + 60),     # 5 m on the raster, 50 km off it
+        box(X0 - 5_000, Y0 - 5_000, X0 - 4_000, Y0 - 4_000),  # wholly off
+    ], crs=CRS)
+    _, record = screen_sites(cands, land_use=LandUseMask(path, allowed=(1,), min_share=0.1))
+    np.testing.assert_allclose(record.land_use_share, [5 / 30, 20 / 32, 0.0, 0.0], rtol=0, atol=1e-12)
+    assert record.verdict.tolist() == ["kept", "kept", "land_use", "land_use"]
+    assert record.feature.tolist() == [-1, -1, -1, -1]  # kept sites carry no class
+    inside = gpd.GeoDataFrame(geometry=[box(X0 + 10, Y0 + 10, X0 + 30, Y0 + 30)], crs=CRS)  # all class 1
+    _, strict = screen_sites(pd.concat([cands, inside]), land_use=LandUseMask(path, allowed=(1,), min_share=0.9))
+    assert strict.feature.tolist() == [-1, 6, -1, -1, -1]
+    assert strict.verdict.tolist()[-1] == "kept"
