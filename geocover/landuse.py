@@ -86,7 +86,10 @@ def land_use_shares(
         r1 = np.floor(rowf.max(axis=1)).astype(np.int64)
         c0 = np.floor(colf.min(axis=1)).astype(np.int64)
         c1 = np.floor(colf.max(axis=1)).astype(np.int64)
-        span = (int(r1.max()) - int(r0.min()) + 1) * (int(c1.max()) - int(c0.min()) + 1)
+        # cells of the window under all sites, clipped to the raster (sites far off it read nothing)
+        span = max(min(int(r1.max()), src.height - 1) - max(int(r0.min()), 0) + 1, 0) * max(
+            min(int(c1.max()), src.width - 1) - max(int(c0.min()), 0) + 1, 0
+        )
         if span <= _MAX_WINDOW_CELLS:
             groups = [np.arange(len(rows))]
         else:
