@@ -506,14 +506,20 @@ def _costs(frame: "gpd.GeoDataFrame", field: str | None, default: float, what: s
     text_bad = column.notna().to_numpy() & np.isnan(values)
     if text_bad.any():
         row = int(np.flatnonzero(text_bad)[0])
-        raise InputError(f"cost_field: {what} field {field!r} holds {column.iloc[row]!r} at row {row}, not a number")
+        raise InputError(
+            f"cost_field: {what} field {field!r} holds {column.iloc[row]!r} at feature {int(_feature_ids(frame)[row])}, "
+            "not a number; give a number (or leave it empty for the default cost)"
+        )
     missing = np.isnan(values)
     if missing.any():
         notes.append(f"{what}: {int(missing.sum())} empty value(s) in {field!r} take the default cost {default:g}")
         values[missing] = default
     if (values < 0).any() or not np.isfinite(values).all():
         row = int(np.flatnonzero((values < 0) | ~np.isfinite(values))[0])
-        raise InputError(f"cost_field: {what} field {field!r} has cost {values[row]} at row {row}; costs must be 0 or more")
+        raise InputError(
+            f"cost_field: {what} field {field!r} has cost {values[row]} at feature {int(_feature_ids(frame)[row])}; "
+            "costs must be finite and 0 or more"
+        )
     return values
 
 
@@ -558,7 +564,7 @@ def _roles(frame: "gpd.GeoDataFrame", field: str | None, default: SiteRole, note
         role = _ROLE_WORDS.get(str(value).strip().lower())
         if role is None:
             raise InputError(
-                f"existing_role_field: existing sites field {field!r} holds {value!r} at row {i}; "
+                f"existing_role_field: existing sites field {field!r} holds {value!r} at feature {int(_feature_ids(frame)[i])}; "
                 "use 'kept' or 'optional' (or leave it empty for the default role)"
             )
         out[i] = int(role)

@@ -427,3 +427,19 @@ def test_flagged_existing_sites_name_the_zone_feature_or_the_class(tmp_path):
     assert "west is kept although it is inside flood (flood, feature 7)" in notes
     assert "east is kept although it is not on land use in classes (1) (lu, class 6)" in notes
     assert "far is kept although it is not on land use in classes (1) (lu, nodata or off the raster)" in notes
+
+
+def test_bad_costs_and_roles_name_the_feature_id_a_user_sees(world):
+    # the GeoPackage fid of the second parcel is 2 (row 1)
+    parcels = gpd.read_file(world, layer="candidate_parcels", fid_as_index=True)
+    parcels["cost"] = parcels["cost"].astype(object)
+    parcels.loc[2, "cost"] = "n/a"
+    with pytest.raises(InputError, match="holds 'n/a' at feature 2, not a number"):
+        screen_sites(parcels, cost_field="cost")
+    parcels.loc[2, "cost"] = -1.0
+    with pytest.raises(InputError, match="has cost -1.0 at feature 2; costs must be finite and 0 or more"):
+        screen_sites(parcels, cost_field="cost")
+    stations = gpd.read_file(world, layer="existing_stations", fid_as_index=True)
+    stations.loc[2, "status"] = "maybe"
+    with pytest.raises(InputError, match="holds 'maybe' at feature 2"):
+        screen_sites(None, existing=stations, existing_role_field="status")
