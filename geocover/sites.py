@@ -206,6 +206,10 @@ def _read(value: Any, what: str, allow_empty: bool = False) -> tuple["gpd.GeoDat
         if value.crs is None:
             raise CRSError(f"{what}: the GeoDataFrame has no CRS; set one with frame.set_crs('EPSG:...')")
         if len(value) == 0 and not allow_empty:
+            if value.attrs.get("name") == "lattice":
+                raise LayerError(
+                    f"{what}: the lattice has no point inside the study area; use a smaller lattice spacing"
+                )
             raise LayerError(f"{what}: the GeoDataFrame has no features")
         return value, _layer_name(value) if ("name" in value.attrs or "source" in value.attrs) else what
     if isinstance(value, gpd.GeoSeries):
