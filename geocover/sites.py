@@ -165,6 +165,8 @@ class LandUseMask:
                 continue
             if isinstance(value, (int, np.integer)):
                 value = (value,)
+            elif isinstance(value, str):  # "1, 2, 3"; iterating the text would read "12" as classes 1 and 2
+                value = tuple(v for v in value.replace(",", " ").split())
             try:
                 codes = tuple(int(v) for v in value)
                 if any(int(v) != float(v) for v in value):

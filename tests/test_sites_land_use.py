@@ -191,3 +191,10 @@ def test_parcels_over_the_edge_count_the_area_off_the_raster_as_class_minus_one(
     _, strict = screen_sites(pd.concat([cands, inside]), land_use=LandUseMask(path, allowed=(1,), min_share=0.9))
     assert strict.feature.tolist() == [-1, 6, -1, -1, -1]
     assert strict.verdict.tolist()[-1] == "kept"
+
+
+def test_land_use_classes_given_as_text_are_read_as_codes():
+    assert LandUseMask("x.tif", allowed="12, 3").allowed == (12, 3)
+    assert LandUseMask("x.tif", forbidden="6 7").forbidden == (6, 7)
+    with pytest.raises(ParameterError, match="whole class codes"):
+        LandUseMask("x.tif", allowed="urban")
