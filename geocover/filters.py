@@ -49,6 +49,8 @@ __all__ = ["Filter", "parse_filter", "filter_mask"]
 
 # --------------------------------------------------------------------------- tokens
 
+_MAX_DEPTH = 100  # nesting of 'not' and '(' (each level is a few Python frames)
+
 _KEYWORDS = {"and", "or", "not", "in", "is", "null", "true", "false"}
 _OPS = ("==", "!=", "<>", "<=", ">=", "=", "<", ">")
 
@@ -145,6 +147,7 @@ class _Parser:
         self.param = param
         self.tokens = _tokenize(text, param)
         self.i = 0
+        self.depth = 0
 
     def peek(self) -> _Token:
         return self.tokens[self.i]
@@ -195,18 +198,28 @@ class _Parser:
 
     def not_expr(self) -> _Node:
         if self.is_keyword("not"):
-            self.take()
-            return _Not(self.not_expr())
+            tok = self.take()
+            self.nest(tok)
+            node = _Not(self.not_expr())
+            self.depth -= 1
+            return node
         return self.primary()
+
+    def nest(self, tok: _Token) -> None:
+        """Count one level of 'not' or '('; a text nested past any sensible depth is refused, not a RecursionError."""
+        self.depth += 1
+        if self.depth > _MAX_DEPTH:
+            raise _error(self.text, tok.pos, f"the filter nests 'not' and '(' more than {_MAX_DEPTH} deep", self.param)
 
     def primary(self) -> _Node:
         tok = self.peek()
         if tok.kind == "punct" and tok.value == "(":
-            self.take()
+            self.nest(self.take())
             node = self.or_expr()
             close = self.take()
             if not (close.kind == "punct" and close.value == ")"):
                 raise self.fail(close, "')'")
+            self.depth -= 1
             return node
         return self.comparison()
 

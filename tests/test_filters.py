@@ -141,3 +141,11 @@ def test_sql_doubled_quotes_get_a_hint_and_backslash_escapes_work():
     # a backslash escapes the next character, so a literal backslash is written twice
     assert filter_mask(frame, "path == 'C:\\\\new'").tolist() == [True, False]
     assert filter_mask(frame, "path == 'C:\\new'").tolist() == [False, True]
+
+
+def test_deep_nesting_is_a_parameter_error_not_a_recursion_error():
+    assert filter_mask(pd.DataFrame({"a": [1, 2]}), "(" * 50 + "not " * 41 + "a == 1" + ")" * 50).tolist() == [False, True]
+    with pytest.raises(ParameterError, match="nests 'not' and '\\(' more than 100 deep"):
+        parse_filter("(" * 400 + "a == 1" + ")" * 400)
+    with pytest.raises(ParameterError, match="more than 100 deep"):
+        parse_filter("not " * 1200 + "a == 1")
