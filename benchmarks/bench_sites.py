@@ -9,8 +9,10 @@ setback).  Target (issue 4): screen_sites within 1.5x of the baseline.
 
 screen_sites does more than the baseline: the exact distance of every
 candidate pair (to make setbacks exact), the distance to the nearest zone
-for every site (``STRtree.query_nearest`` for the sites with no zone within
-the setback), the validity check of the zones, representative points, the
+for every site (for the sites with no zone within the setback: a KD-tree
+bound from the zone vertices, then exact distances to the zones whose
+envelope is within that bound; ``STRtree.query_nearest`` is timed beside it
+for comparison), the validity check of the zones, representative points, the
 record.  The script times those parts separately too, so a missed target
 says where the time goes.
 

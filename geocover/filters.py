@@ -20,7 +20,9 @@ Grammar::
     field      := identifier | `back-quoted name`
     value      := number | 'string' | "string" | true | false
 
-Keywords are case-insensitive.  A missing value (null / NaN) matches no
+Keywords are case-insensitive; field names are not.  Inside a quoted text a
+backslash escapes the next character (``'it\\'s'``, ``'C:\\\\data'``); SQL's
+doubled quote (``'it''s'``) is refused with a hint.  A missing value (null / NaN) matches no
 comparison (``==``, ``!=``, ``<``, ``in``, ``not in`` are all false on it);
 only ``is null`` finds it.  ``not`` simply negates, so ``not depth_m > 1``
 is true on a missing depth while ``depth_m <= 1`` is not.
@@ -46,6 +48,8 @@ from .errors import ParameterError
 __all__ = ["Filter", "parse_filter", "filter_mask"]
 
 # --------------------------------------------------------------------------- tokens
+
+_MAX_DEPTH = 100  # nesting of 'not' and '(' (each level is a few Python frames)
 
 _KEYWORDS = {"and", "or", "not", "in", "is", "null", "true", "false"}
 _OPS = ("==", "!=", "<>", "<=", ">=", "=", "<", ">")
@@ -143,6 +147,7 @@ class _Parser:
         self.param = param
         self.tokens = _tokenize(text, param)
         self.i = 0
+        self.depth = 0
 
     def peek(self) -> _Token:
         return self.tokens[self.i]
@@ -164,8 +169,17 @@ class _Parser:
         if self.peek().kind == "end":
             raise _error(self.text, 0, "the filter is empty", self.param)
         node = self.or_expr()
-        if self.peek().kind != "end":
-            raise self.fail(self.peek(), "'and', 'or' or the end of the filter")
+        tok = self.peek()
+        if tok.kind != "end":
+            before = self.tokens[self.i - 1]
+            if tok.kind == "string" and before.kind == "string":  # 'it''s': SQL's doubled quote
+                raise _error(
+                    self.text, tok.pos,
+                    "two quoted texts in a row; to put a quote inside a text write it as \\' or \\\" "
+                    "(or quote with the other kind: \"it's\")",
+                    self.param,
+                )
+            raise self.fail(tok, "'and', 'or' or the end of the filter")
         return node
 
     def or_expr(self) -> _Node:
@@ -184,18 +198,28 @@ class _Parser:
 
     def not_expr(self) -> _Node:
         if self.is_keyword("not"):
-            self.take()
-            return _Not(self.not_expr())
+            tok = self.take()
+            self.nest(tok)
+            node = _Not(self.not_expr())
+            self.depth -= 1
+            return node
         return self.primary()
+
+    def nest(self, tok: _Token) -> None:
+        """Count one level of 'not' or '('; a text nested past any sensible depth is refused, not a RecursionError."""
+        self.depth += 1
+        if self.depth > _MAX_DEPTH:
+            raise _error(self.text, tok.pos, f"the filter nests 'not' and '(' more than {_MAX_DEPTH} deep", self.param)
 
     def primary(self) -> _Node:
         tok = self.peek()
         if tok.kind == "punct" and tok.value == "(":
-            self.take()
+            self.nest(self.take())
             node = self.or_expr()
             close = self.take()
             if not (close.kind == "punct" and close.value == ")"):
                 raise self.fail(close, "')'")
+            self.depth -= 1
             return node
         return self.comparison()
 
@@ -260,17 +284,6 @@ def _comparisons(node: _Node) -> list[_Compare]:
     return _comparisons(node.operand)
 
 
-def _fields(node: _Node, out: list[str]) -> None:
-    if isinstance(node, _Compare):
-        if node.field not in out:
-            out.append(node.field)
-    elif isinstance(node, _Bool):
-        _fields(node.left, out)
-        _fields(node.right, out)
-    else:
-        _fields(node.operand, out)
-
-
 # --------------------------------------------------------------------------- evaluation
 
 
@@ -288,9 +301,7 @@ class Filter:
     @property
     def fields(self) -> tuple[str, ...]:
         """The field names the filter reads, in order of first use."""
-        out: list[str] = []
-        _fields(self.tree, out)
-        return tuple(out)
+        return tuple(dict.fromkeys(node.field for node in _comparisons(self.tree)))
 
     def mask(self, frame: Any, layer: str = "layer") -> np.ndarray:
         """Boolean array: which rows of ``frame`` the filter selects.
@@ -312,9 +323,11 @@ class Filter:
         for node in _comparisons(self.tree):
             name = node.field
             if name not in frame.columns:
+                alike = [c for c in columns if c.lower() == name.lower()]
+                hint = f" (field names are case-sensitive: did you mean {alike[0]!r}?)" if alike else ""
                 raise _error(
                     self.text, node.pos,
-                    f"layer {layer} has no field {name!r}; its fields are: {', '.join(columns) or 'none'}",
+                    f"layer {layer} has no field {name!r}{hint}; its fields are: {', '.join(columns) or 'none'}",
                     self.param,
                 )
         return np.asarray(self._eval(self.tree, frame, layer), dtype=bool)

@@ -48,7 +48,8 @@ from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, req
 from .choices import LatticeShape
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
-from .layers import LayerRef, open_raster, parse_layer_ref, read_vector, to_crs
+from .landuse import land_use_shares
+from .layers import LayerRef, parse_layer_ref, read_vector, to_crs
 from .units import parse_distance, parse_fraction
 from .values import ScreeningRecord, SiteRole, Sites, Verdict
 
@@ -164,6 +165,8 @@ class LandUseMask:
                 continue
             if isinstance(value, (int, np.integer)):
                 value = (value,)
+            elif isinstance(value, str):  # "1, 2, 3"; iterating the text would read "12" as classes 1 and 2
+                value = tuple(v for v in value.replace(",", " ").split())
             try:
                 codes = tuple(int(v) for v in value)
                 if any(int(v) != float(v) for v in value):
@@ -205,6 +208,10 @@ def _read(value: Any, what: str, allow_empty: bool = False) -> tuple["gpd.GeoDat
         if value.crs is None:
             raise CRSError(f"{what}: the GeoDataFrame has no CRS; set one with frame.set_crs('EPSG:...')")
         if len(value) == 0 and not allow_empty:
+            if value.attrs.get("name") == "lattice":
+                raise LayerError(
+                    f"{what}: the lattice has no point inside the study area; use a smaller lattice spacing"
+                )
             raise LayerError(f"{what}: the GeoDataFrame has no features")
         return value, _layer_name(value) if ("name" in value.attrs or "source" in value.attrs) else what
     if isinstance(value, gpd.GeoSeries):
@@ -215,7 +222,7 @@ def _read(value: Any, what: str, allow_empty: bool = False) -> tuple["gpd.GeoDat
 
 
 def _feature_ids(frame: "gpd.GeoDataFrame") -> np.ndarray:
-    """The frame's integer index (the row as read, or the caller's ids), else row positions."""
+    """The frame's integer index (the fid when read from a file, or the caller's ids), else row positions."""
     index = frame.index
     if np.issubdtype(index.dtype, np.integer):
         return np.asarray(index, dtype=np.int64)
@@ -233,22 +240,26 @@ def _lonlat_centre(frame: "gpd.GeoDataFrame") -> tuple[float, float] | None:
     return float(lon), float(lat)
 
 
-def _working_crs(requested: Any, frame: "gpd.GeoDataFrame") -> "CRS":
+def _working_crs(requested: Any, frame: "gpd.GeoDataFrame", what: str = "candidates") -> "CRS":
+    """The requested CRS, else ``frame``'s when projected in metres, else a local one at its centre."""
     if requested is not None:
         return require_projected(requested, "working CRS (crs)")
     crs = as_crs(frame.crs)
     if not crs.is_geographic:
         try:
-            return require_projected(crs, f"CRS {crs_label(crs)} of the candidates")
+            return require_projected(crs, f"CRS {crs_label(crs)} of the {what}")
         except CRSError:
             pass  # projected but not in metres: fall through to a local metre CRS
     centre = _lonlat_centre(frame)
     if centre is None:
-        raise LayerError("candidates: no feature has a usable geometry, so no working CRS can be chosen")
+        raise LayerError(
+            f"{what}: no feature has a usable geometry, so no working CRS can be chosen; "
+            "give crs='EPSG:...' (a projected CRS in metres) or fix the layer's geometries"
+        )
     if crs.is_geographic:
         return choose_working_crs(None, [crs], centre)
     working = local_projected_crs(*centre)
-    logger.info("candidates' CRS %s is not in metres; working in %s", crs_label(crs), crs_label(working))
+    logger.info("%s' CRS %s is not in metres; working in %s", what, crs_label(crs), crs_label(working))
     return working
 
 
@@ -281,6 +292,24 @@ def _repair(geoms: np.ndarray, what: str, notes: list[str]) -> np.ndarray:
     return geoms
 
 
+def _area_geometry(frame: "gpd.GeoDataFrame", notes: list[str]) -> Any:
+    """The union of a study-area layer (already in the working CRS), repaired; refuses an area of 0."""
+    parts = _repair(np.asarray(frame.geometry.array, dtype=object), "study area", notes)
+    return _checked_area(shapely.union_all(parts[~shapely.is_missing(parts)]))
+
+
+def _checked_area(area: Any) -> Any:
+    """A study area, repaired when invalid (a bow tie's own area is 0 before repair); refuses an area of 0."""
+    if area is not None and not area.is_empty and not area.is_valid:
+        area = shapely.make_valid(area)
+    if area is None or area.is_empty or area.area <= 0:
+        raise LayerError(
+            "study area: it has no area (no polygon with an area of more than 0); "
+            "give a polygon layer or geometry covering the place to study"
+        )
+    return area
+
+
 @dataclass
 class _Located:
     """Representative points and footprints of a site layer, in the working CRS."""
@@ -292,10 +321,12 @@ class _Located:
 
 
 def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
-    geoms = np.asarray(frame.geometry.array, dtype=object)
-    geoms = _repair(geoms, what, notes)
+    raw = np.asarray(frame.geometry.array, dtype=object)
+    geoms = _repair(raw, what, notes)
     n = len(geoms)
     types = shapely.get_type_id(geoms)
+    # a polygon that make_valid turned into lines or points had no area to begin with
+    collapsed = np.isin(shapely.get_type_id(raw), _POLYGON_TYPES) & ~np.isin(types, _POLYGON_TYPES)
     missing = shapely.is_missing(geoms)
     empty = np.zeros(n, dtype=bool)
     empty[~missing] = shapely.is_empty(geoms[~missing])
@@ -303,6 +334,7 @@ def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
     is_poly = np.isin(types, _POLYGON_TYPES)
     reason = np.full(n, "", dtype=object)
     reason[~(is_point | is_poly)] = "geometry is not a point or a polygon"
+    reason[collapsed] = "polygon with no area"
     reason[empty] = "empty geometry"
     reason[missing] = "no geometry"
     usable = reason == ""
@@ -432,149 +464,6 @@ def _group_min(index: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
     return out
 
 
-def _affine(t: Any, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Apply an affine transform to coordinate arrays."""
-    return t.a * x + t.b * y + t.c, t.d * x + t.e * y + t.f
-
-
-def _cell_polygons(transform: Any, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
-    """Cell outlines (any affine transform) for cells at ``rows``, ``cols``."""
-    a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
-    corners_c = np.stack([cols, cols + 1, cols + 1, cols, cols], axis=1).astype(np.float64)
-    corners_r = np.stack([rows, rows, rows + 1, rows + 1, rows], axis=1).astype(np.float64)
-    x = a * corners_c + b * corners_r + c
-    y = d * corners_c + e * corners_r + f
-    return shapely.polygons(np.stack([x, y], axis=2))
-
-
-_MAX_WINDOW_CELLS = 50_000_000  # read the raster in tiles of sites beyond this many cells at once
-_TILE_CELLS = 4096  # side of such a tile, in cells
-
-
-def _land_use(
-    mask: LandUseMask, located: _Located, rows: np.ndarray, crs: "CRS", notes: list[str]
-) -> tuple[np.ndarray, np.ndarray]:
-    """Share of each footprint (at ``rows``) on allowed classes, and the main disallowed class (-1).
-
-    Point sites: 1 or 0 by the class of the cell under the point (the
-    cell below / right of it when the point is on a cell edge).  Parcels:
-    the exact area of the parcel on each cell under its bounding box
-    (cell polygon intersection), summed over allowed cells and divided by
-    the parcel's whole area, so area off the raster or on nodata counts as
-    not allowed.  The raster is read once under all sites, or in tiles of
-    sites when that window is very large.
-    """
-    import geopandas as gpd
-    from rasterio.errors import RasterioIOError
-    from rasterio.windows import Window
-
-    n = len(located.xy)
-    share = np.full(n, np.nan)
-    worst = np.full(n, -1, dtype=np.int64)
-    if not len(rows):
-        return share, worst
-    with open_raster(mask.raster, "land-use raster") as src:
-        shapes = located.footprint[rows]
-        if not as_crs(src.crs).equals(crs):
-            notes.append(f"land-use raster: sites reprojected to its CRS {crs_label(src.crs)} to read cells")
-            shapes = np.asarray(gpd.GeoSeries(shapes, crs=crs).to_crs(src.crs).array, dtype=object)
-        inv = ~src.transform
-        bounds = shapely.bounds(shapes)
-        cx = bounds[:, [0, 2, 0, 2]]
-        cy = bounds[:, [1, 1, 3, 3]]
-        colf, rowf = _affine(inv, cx, cy)
-        r0 = np.floor(rowf.min(axis=1)).astype(np.int64)
-        r1 = np.floor(rowf.max(axis=1)).astype(np.int64)
-        c0 = np.floor(colf.min(axis=1)).astype(np.int64)
-        c1 = np.floor(colf.max(axis=1)).astype(np.int64)
-        span = (int(r1.max()) - int(r0.min()) + 1) * (int(c1.max()) - int(c0.min()) + 1)
-        if span <= _MAX_WINDOW_CELLS:
-            groups = [np.arange(len(rows))]
-        else:
-            tile = _TILE_CELLS
-            key = (np.clip(r0, 0, None) // tile) * (src.width // tile + 1) + np.clip(c0, 0, None) // tile
-            order = np.argsort(key, kind="stable")
-            groups = np.split(order, np.flatnonzero(np.diff(key[order])) + 1)
-        point_all = located.is_point[rows]
-        for group in groups:
-            # the window under this group's sites, clipped to the raster
-            wr0, wc0 = max(int(r0[group].min()), 0), max(int(c0[group].min()), 0)
-            wr1 = min(int(r1[group].max()), src.height - 1)
-            wc1 = min(int(c1[group].max()), src.width - 1)
-            if wr1 < wr0 or wc1 < wc0:
-                data = np.ma.masked_all((1, 1), dtype=np.int64)
-                wr0 = wc0 = wr1 = wc1 = -(10**12)  # nothing is on the raster
-            else:
-                try:
-                    data = src.read(1, window=Window(wc0, wr0, wc1 - wc0 + 1, wr1 - wr0 + 1), masked=True)
-                except RasterioIOError as exc:  # a truncated file opens but cannot be read
-                    raise LayerError(
-                        f"land-use raster {mask.raster}: cannot read its cells ({exc}); the file looks truncated or "
-                        "damaged: is it a complete GeoTIFF? Copy or export it again"
-                    ) from None
-            codes_all = np.asarray(np.ma.getdata(data))
-            invalid_all = np.ma.getmaskarray(data)
-            if np.issubdtype(codes_all.dtype, np.floating):
-                invalid_all = invalid_all | ~np.isfinite(codes_all)
-
-            def cell_values(r: np.ndarray, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-                """Class codes (-1 off the raster or nodata) and "allowed" flags."""
-                on = (r >= wr0) & (r <= wr1) & (c >= wc0) & (c <= wc1)
-                values = np.full(len(r), -1, dtype=np.int64)
-                ok = np.zeros(len(r), dtype=bool)
-                if on.any():
-                    rr, cc = r[on] - wr0, c[on] - wc0
-                    valid = ~invalid_all[rr, cc]
-                    codes = np.where(valid, codes_all[rr, cc], -1).astype(np.int64)
-                    values[on] = codes
-                    ok[on] = valid & mask.allows(codes)
-                return values, ok
-
-            point = group[point_all[group]]
-            if len(point):
-                xy = shapely.get_coordinates(shapely.point_on_surface(shapes[point]))
-                pc, pr = _affine(inv, xy[:, 0], xy[:, 1])
-                values, ok = cell_values(np.floor(pr).astype(np.int64), np.floor(pc).astype(np.int64))
-                share[rows[point]] = ok.astype(np.float64)
-                worst[rows[point]] = np.where(ok, -1, values)
-            poly = group[~point_all[group]]
-            if len(poly):
-                _parcel_shares(poly, shapes, r0, r1, c0, c1, src.transform, cell_values, rows, share, worst)
-    return share, worst
-
-
-def _parcel_shares(
-    poly: np.ndarray, shapes: np.ndarray, r0: np.ndarray, r1: np.ndarray, c0: np.ndarray, c1: np.ndarray,
-    transform: Any, cell_values: Any, rows: np.ndarray, share: np.ndarray, worst: np.ndarray,
-) -> None:
-    """Exact area of each parcel on each cell under its bounding box, summed over allowed cells."""
-    counts = (r1[poly] - r0[poly] + 1) * (c1[poly] - c0[poly] + 1)
-    owner = np.repeat(poly, counts)
-    start = np.repeat(np.cumsum(counts) - counts, counts)
-    k = np.arange(len(owner)) - start
-    width = np.repeat(c1[poly] - c0[poly] + 1, counts)
-    cell_r = np.repeat(r0[poly], counts) + k // width
-    cell_c = np.repeat(c0[poly], counts) + k % width
-    area = np.zeros(len(owner))
-    chunk = 200_000
-    for s in range(0, len(owner), chunk):
-        sl = slice(s, s + chunk)
-        cells = _cell_polygons(transform, cell_r[sl], cell_c[sl])
-        area[sl] = shapely.area(shapely.intersection(shapes[owner[sl]], cells))
-    values, ok = cell_values(cell_r, cell_c)
-    good = np.bincount(owner, weights=np.where(ok, area, 0.0), minlength=len(rows))
-    share[rows[poly]] = np.clip(good[poly] / shapely.area(shapes[poly]), 0.0, 1.0)
-    # the disallowed class covering the most area, for the record
-    bad = ~ok & (area > 0)
-    if bad.any():
-        keys = np.stack([owner[bad], values[bad]], axis=1)
-        pairs, inverse = np.unique(keys, axis=0, return_inverse=True)
-        sums = np.bincount(inverse.ravel(), weights=area[bad])
-        order = np.lexsort((-sums, pairs[:, 0]))
-        firsts = order[np.unique(pairs[order, 0], return_index=True)[1]]
-        worst[rows[pairs[firsts, 0]]] = pairs[firsts, 1]
-
-
 # --------------------------------------------------------------------------- helpers
 
 
@@ -623,14 +512,20 @@ def _costs(frame: "gpd.GeoDataFrame", field: str | None, default: float, what: s
     text_bad = column.notna().to_numpy() & np.isnan(values)
     if text_bad.any():
         row = int(np.flatnonzero(text_bad)[0])
-        raise InputError(f"cost_field: {what} field {field!r} holds {column.iloc[row]!r} at row {row}, not a number")
+        raise InputError(
+            f"cost_field: {what} field {field!r} holds {column.iloc[row]!r} at feature {int(_feature_ids(frame)[row])}, "
+            "not a number; give a number (or leave it empty for the default cost)"
+        )
     missing = np.isnan(values)
     if missing.any():
         notes.append(f"{what}: {int(missing.sum())} empty value(s) in {field!r} take the default cost {default:g}")
         values[missing] = default
     if (values < 0).any() or not np.isfinite(values).all():
         row = int(np.flatnonzero((values < 0) | ~np.isfinite(values))[0])
-        raise InputError(f"cost_field: {what} field {field!r} has cost {values[row]} at row {row}; costs must be 0 or more")
+        raise InputError(
+            f"cost_field: {what} field {field!r} has cost {values[row]} at feature {int(_feature_ids(frame)[row])}; "
+            "costs must be finite and 0 or more"
+        )
     return values
 
 
@@ -675,7 +570,7 @@ def _roles(frame: "gpd.GeoDataFrame", field: str | None, default: SiteRole, note
         role = _ROLE_WORDS.get(str(value).strip().lower())
         if role is None:
             raise InputError(
-                f"existing_role_field: existing sites field {field!r} holds {value!r} at row {i}; "
+                f"existing_role_field: existing sites field {field!r} holds {value!r} at feature {int(_feature_ids(frame)[i])}; "
                 "use 'kept' or 'optional' (or leave it empty for the default role)"
             )
         out[i] = int(role)
@@ -761,8 +656,6 @@ def screen_sites(
         When no candidate is left after screening (the message says which
         rule removed how many), or a layer, field or value is unusable.
     """
-    import geopandas as gpd
-
     notes: list[str] = []
     rules = [exclude] if isinstance(exclude, Exclusion) else list(exclude)
     names = [str(getattr(rule, "name", "")) for rule in rules]
@@ -779,19 +672,31 @@ def screen_sites(
     if land_use is not None and not isinstance(land_use, LandUseMask):
         raise ParameterError(f"land_use: expected LandUseMask(...), got {type(land_use).__name__}", "land_use")
     default_role = _role(existing_role, "existing_role")
-    if not (math.isfinite(float(default_cost)) and float(default_cost) >= 0):
-        raise ParameterError(f"default_cost: must be 0 or more, got {default_cost!r}", "default_cost")
+    try:
+        cost_ok = math.isfinite(float(default_cost)) and float(default_cost) >= 0
+    except (TypeError, ValueError):
+        cost_ok = False
+    if not cost_ok:
+        raise ParameterError(f"default_cost: must be a number of 0 or more, got {default_cost!r}", "default_cost")
     spacing = None if min_spacing_m is None else parse_distance(min_spacing_m, param="min_spacing_m")
+    if spacing is not None and not (math.isfinite(spacing) and spacing >= 0):  # before any layer is read
+        raise ParameterError(f"min_spacing_m: must be a distance of 0 m or more, got {min_spacing_m!r}", "min_spacing_m")
 
     only_existing = candidates is None
+    ex = None
+    if existing is not None:
+        ex, _ = _read(existing, "existing sites", allow_empty=True)
     if only_existing:
-        if existing is None:
+        if ex is None:
             raise ParameterError("candidates: give candidate sites, existing facilities, or both", "candidates")
-        cand, _ = _read(existing, "existing sites", allow_empty=True)
-        cand, cand_name = cand.iloc[0:0].copy(), "candidates"
+        cand, cand_name = ex.iloc[0:0].copy(), "candidates"
     else:
-        cand, cand_name = _read(candidates, "candidates", allow_empty=existing is not None)
-    working = _working_crs(crs, cand)
+        cand, cand_name = _read(candidates, "candidates", allow_empty=ex is not None)
+    # with no candidate features (an audit of today's facilities) the existing ones place the working CRS
+    if len(cand) or ex is None:
+        working = _working_crs(crs, cand)
+    else:
+        working = _working_crs(crs, ex, "existing sites")
     cand = _reproject(cand, working, "candidates", notes)
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
@@ -800,8 +705,7 @@ def screen_sites(
     cand_label = _labels(cand, label_field, "candidate", cand_ids, "candidates layer", required=not only_existing)
     cand_loc = _locate(cand, "candidates", notes)
 
-    if existing is not None:
-        ex, _ = _read(existing, "existing sites", allow_empty=True)
+    if ex is not None:
         ex = _reproject(ex, working, "existing sites", notes)
         ex_ids = _feature_ids(ex)
         ex_cost = _costs(ex, cost_field, 0.0, "existing sites layer", notes, required=False)
@@ -851,12 +755,10 @@ def screen_sites(
     # study area
     if study_area is not None:
         if isinstance(study_area, shapely.Geometry):
-            area_geom, area_name = study_area, "study_area"
+            area_geom, area_name = _checked_area(study_area), "study_area"
         else:
             area_frame, area_name = _read(study_area, "study area")
-            area_frame = _reproject(area_frame, working, "study area", notes)
-            parts = _repair(np.asarray(area_frame.geometry.array, dtype=object), "study area", notes)
-            area_geom = shapely.union_all(parts[~shapely.is_missing(parts)])
+            area_geom = _area_geometry(_reproject(area_frame, working, "study area", notes), notes)
         shapely.prepare(area_geom)
         inside = np.zeros(total, dtype=bool)
         inside[usable] = shapely.covers(area_geom, shapely.points(xy[usable]))
@@ -872,13 +774,11 @@ def screen_sites(
         hits = _screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m)
         nearest = np.minimum(nearest, hits.nearest)
         reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
-    if not rules:
-        nearest[:] = np.inf
 
     # land use
     share = np.full(total, np.nan)
     if land_use is not None:
-        share, worst = _land_use(land_use, located, rows, working, notes)
+        share, worst = land_use_shares(land_use, located.footprint, located.is_point, rows, working, notes)
         fails = usable & (share < land_use.min_share - 1e-12)
         text = np.where(
             located.is_point,
@@ -892,7 +792,13 @@ def screen_sites(
         role = SiteRole(int(ex_role[i]))
         tag = f"existing ({'kept' if role == SiteRole.KEPT else 'optional'})"
         if verdict[i] != Verdict.KEPT.value:
-            message = f"existing site {ex_label[i]} is kept although it is {rule_text[i]} ({layer[i]}, feature {feature[i]})"
+            if verdict[i] == Verdict.EXCLUDED.value:
+                where = f"{layer[i]}, feature {feature[i]}"
+            elif verdict[i] == Verdict.LAND_USE.value:  # the feature is the class code there, -1 for none
+                where = f"{layer[i]}, {'nodata or off the raster' if feature[i] < 0 else f'class {feature[i]}'}"
+            else:
+                where = str(layer[i])
+            message = f"existing site {ex_label[i]} is kept although it is {rule_text[i]} ({where})"
             logger.warning(message)
             notes.append(message)
             rule_text[i] = f"{tag}, flagged: {rule_text[i]}"
@@ -1030,17 +936,11 @@ def lattice_candidates(
         if crs is None:
             raise CRSError("lattice_candidates: a bare geometry as study area needs crs='EPSG:...'")
         working = require_projected(crs, "working CRS (crs)")
-        area = study_area
+        area = _checked_area(study_area)
     else:
         frame, _ = _read(study_area, "study area")
-        working = _working_crs(crs, frame)
-        frame = _reproject(frame, working, "study area", notes)
-        parts = _repair(np.asarray(frame.geometry.array, dtype=object), "study area", notes)
-        area = shapely.union_all(parts[~shapely.is_missing(parts)])
-    if area is None or area.is_empty or area.area <= 0:
-        raise LayerError("study area: it has no area, so no lattice can be laid over it")
-    if not area.is_valid:
-        area = shapely.make_valid(area)
+        working = _working_crs(crs, frame, "study area")
+        area = _area_geometry(_reproject(frame, working, "study area", notes), notes)
     minx, miny, maxx, maxy = area.bounds
     dy = spacing if kind is LatticeShape.SQUARE else spacing * math.sqrt(3.0) / 2.0
     n_rows = int(math.floor((maxy - miny) / dy + 0.5))

@@ -126,3 +126,26 @@ def test_no_python_is_ever_evaluated(frame):
         parse_filter("zone_class == 'A'; import os")
     with pytest.raises(ParameterError):
         parse_filter("depth_m > 1 + 1")
+
+
+def test_a_field_in_the_wrong_case_is_pointed_out(frame):
+    with pytest.raises(ParameterError) as err:
+        filter_mask(frame, "Zone_Class == 'A'", layer="flood_zones")
+    assert "no field 'Zone_Class' (field names are case-sensitive: did you mean 'zone_class'?)" in str(err.value)
+
+
+def test_sql_doubled_quotes_get_a_hint_and_backslash_escapes_work():
+    with pytest.raises(ParameterError, match=r"two quoted texts in a row.*at position 18"):
+        parse_filter("zone_class == 'it''s'")
+    frame = pd.DataFrame({"path": ["C:\\new", "C:new"]})
+    # a backslash escapes the next character, so a literal backslash is written twice
+    assert filter_mask(frame, "path == 'C:\\\\new'").tolist() == [True, False]
+    assert filter_mask(frame, "path == 'C:\\new'").tolist() == [False, True]
+
+
+def test_deep_nesting_is_a_parameter_error_not_a_recursion_error():
+    assert filter_mask(pd.DataFrame({"a": [1, 2]}), "(" * 50 + "not " * 41 + "a == 1" + ")" * 50).tolist() == [False, True]
+    with pytest.raises(ParameterError, match="nests 'not' and '\\(' more than 100 deep"):
+        parse_filter("(" * 400 + "a == 1" + ")" * 400)
+    with pytest.raises(ParameterError, match="more than 100 deep"):
+        parse_filter("not " * 1200 + "a == 1")

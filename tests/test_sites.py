@@ -329,3 +329,117 @@ def test_bad_parameters_are_named(world):
         screen_sites(f"{world}:candidate_points", cost_field="price")
     with pytest.raises(ParameterError, match="label_field.*no field 'title'"):
         screen_sites(f"{world}:candidate_points", label_field="title")
+
+
+def test_existing_sites_alone_in_degrees_get_a_local_working_crs():
+    # an audit of today's facilities: no candidates, the facilities in lon/lat place the working CRS
+    stations = gpd.GeoDataFrame({"status": ["kept", "optional"]},
+                                geometry=[Point(-27.0, 36.1), Point(-26.99, 36.11)], crs="EPSG:4326")
+    sites, record = screen_sites(None, existing=stations, existing_role_field="status")
+    assert sites.crs == "EPSG:32626" and record.crs == "EPSG:32626"  # UTM zone 26N holds lon -27
+    assert sites.role.tolist() == [SiteRole.KEPT, SiteRole.OPTIONAL]
+    # the same with an empty candidates layer
+    none = gpd.GeoDataFrame(geometry=[], crs="EPSG:4326")
+    sites2, _ = screen_sites(none, existing=stations)
+    assert sites2.crs == "EPSG:32626" and len(sites2) == 2
+    np.testing.assert_allclose(sites2.xy, sites.xy)
+
+
+def test_a_study_area_without_area_is_refused_not_an_everything_outside():
+    from geocover.errors import LayerError
+
+    cands = gpd.GeoDataFrame(geometry=[Point(50, 50)], crs=CRS)
+    no_geometry = gpd.GeoDataFrame(geometry=[None], crs=CRS)
+    with pytest.raises(LayerError, match="study area: it has no area"):
+        screen_sites(cands, study_area=no_geometry)
+    with pytest.raises(LayerError, match="study area: it has no area"):
+        screen_sites(cands, study_area=shapely.LineString([(0, 0), (100, 100)]))
+
+
+def test_an_invalid_bare_study_area_is_repaired():
+    bowtie = Polygon([(0, 0), (100, 100), (100, 0), (0, 100)])  # self-intersecting
+    cands = gpd.GeoDataFrame(geometry=[Point(20, 50), Point(80, 50), Point(50, 20)], crs=CRS)
+    _, record = screen_sites(cands, study_area=bowtie)
+    # make_valid gives the two triangles meeting at (50, 50): (50, 20) is in neither
+    assert record.verdict.tolist() == ["kept", "kept", "outside"]
+
+
+def test_bad_cost_and_spacing_parameters_are_named_before_reading(tmp_path):
+    missing = tmp_path / "not_there.gpkg"  # never read: the parameters fail first
+    with pytest.raises(ParameterError, match="default_cost: must be a number"):
+        screen_sites(missing, default_cost="cheap")
+    with pytest.raises(ParameterError, match="min_spacing_m: must be a distance of 0 m or more"):
+        screen_sites(missing, min_spacing_m=-3)
+
+
+def test_a_polygon_with_no_area_is_called_so_after_repair():
+    flat = Polygon([(0, 0), (10, 10), (20, 20), (0, 0)])  # all on one line: make_valid gives lines
+    cands = gpd.GeoDataFrame(geometry=[flat, Point(5, 5)], crs=CRS)
+    _, record = screen_sites(cands)
+    assert record.verdict.tolist() == ["invalid", "kept"]
+    assert record.rule[0] == "polygon with no area"
+
+
+def test_holes_and_multipolygons_are_screened_by_their_real_footprint():
+    # a zone with a hole (an island of dry land), a parcel with a hole around a small zone, a two-part parcel
+    ring_zone = box(0, 0, 300, 300).difference(box(100, 100, 200, 200))
+    small_zone = box(1000, 1000, 1010, 1010)
+    zones = gpd.GeoDataFrame(geometry=[ring_zone, small_zone], crs=CRS)
+    donut = box(950, 950, 1060, 1060).difference(box(980, 980, 1030, 1030))  # the small zone sits in its hole
+    two_part = shapely.MultiPolygon([box(500, 500, 520, 520), box(290, 150, 295, 155)])  # 2nd part in the ring
+    cands = gpd.GeoDataFrame(
+        geometry=[Point(150, 150), Point(125, 150), donut, two_part, box(600, 600, 620, 620)], crs=CRS
+    )
+    _, rec0 = screen_sites(cands, exclude=[Exclusion(zones, name="zones")])
+    _, rec30 = screen_sites(cands, exclude=[Exclusion(zones, setback_m=30, name="zones")])
+    # independent: GEOS distance / intersects on the raw geometries
+    raw = np.asarray(cands.geometry.array)
+    zg = np.asarray(zones.geometry.array)
+    d = shapely.distance(raw[:, None], zg[None, :]).min(axis=1)
+    touches = shapely.intersects(raw[:, None], zg[None, :]).any(axis=1)
+    assert rec0.verdict.tolist() == np.where(touches, "excluded", "kept").tolist()
+    assert rec30.verdict.tolist() == np.where(d < 30, "excluded", "kept").tolist()
+    # the point in the island is kept with no setback, 50 m from the shore; the one 25 m from it is not kept at 30
+    assert rec0.verdict.tolist() == ["kept", "kept", "kept", "excluded", "kept"]
+    assert rec30.verdict.tolist() == ["kept", "excluded", "excluded", "excluded", "kept"]
+    np.testing.assert_allclose(rec0.nearest_exclusion_m, d, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(rec0.nearest_exclusion_m[[0, 1, 2]], [50.0, 25.0, 20.0])
+    # the two-part parcel stands at a point inside one of its parts
+    assert shapely.contains_xy(two_part, *rec0.xy[3])
+
+
+def test_flagged_existing_sites_name_the_zone_feature_or_the_class(tmp_path):
+    import rasterio
+    from rasterio.transform import from_origin
+
+    from geocover.sites import LandUseMask
+
+    path = tmp_path / "lu.tif"
+    with rasterio.open(path, "w", driver="GTiff", width=2, height=1, count=1, dtype="uint8", crs=CRS,
+                       transform=from_origin(0, 10, 10, 10), nodata=0) as dst:
+        dst.write(np.array([[1, 6]], dtype=np.uint8), 1)
+    stations = gpd.GeoDataFrame({"name": ["west", "east", "far"]},
+                                geometry=[Point(5, 5), Point(15, 5), Point(500, 5)], crs=CRS)
+    zone = gpd.GeoDataFrame(geometry=[box(0, 0, 8, 8)], crs=CRS, index=[7])
+    _, record = screen_sites(None, existing=stations, existing_label_field="name",
+                             exclude=[Exclusion(zone, name="flood")], land_use=LandUseMask(path, allowed=(1,)))
+    notes = " | ".join(record.notes)
+    assert "west is kept although it is inside flood (flood, feature 7)" in notes
+    assert "east is kept although it is not on land use in classes (1) (lu, class 6)" in notes
+    assert "far is kept although it is not on land use in classes (1) (lu, nodata or off the raster)" in notes
+
+
+def test_bad_costs_and_roles_name_the_feature_id_a_user_sees(world):
+    # the GeoPackage fid of the second parcel is 2 (row 1)
+    parcels = gpd.read_file(world, layer="candidate_parcels", fid_as_index=True)
+    parcels["cost"] = parcels["cost"].astype(object)
+    parcels.loc[2, "cost"] = "n/a"
+    with pytest.raises(InputError, match="holds 'n/a' at feature 2, not a number"):
+        screen_sites(parcels, cost_field="cost")
+    parcels.loc[2, "cost"] = -1.0
+    with pytest.raises(InputError, match="has cost -1.0 at feature 2; costs must be finite and 0 or more"):
+        screen_sites(parcels, cost_field="cost")
+    stations = gpd.read_file(world, layer="existing_stations", fid_as_index=True)
+    stations.loc[2, "status"] = "maybe"
+    with pytest.raises(InputError, match="holds 'maybe' at feature 2"):
+        screen_sites(None, existing=stations, existing_role_field="status")

@@ -7,8 +7,12 @@ against rasterio's ``DatasetReader.sample``.
 
 from __future__ import annotations
 
+import logging
+import re
+
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import pytest
 import rasterio
 import shapely
@@ -66,17 +70,18 @@ def test_parcel_shares_agree_with_exactextract(land_use):
     oracle = np.array([
         float(np.sum(np.asarray(f)[np.isin(np.asarray(u), allowed)])) for u, f in zip(table["unique"], table["frac"])
     ])
-    np.testing.assert_allclose(record.land_use_share, oracle, atol=0.01)
+    # both are exact cell-coverage areas (they agree to ~1e-8): a 1 % tolerance would hide a lost hole or sliver
+    np.testing.assert_allclose(record.land_use_share, oracle, atol=1e-6)
     # the verdicts follow the share and the threshold
     expect = np.where(oracle >= 0.5, Verdict.KEPT.value, Verdict.LAND_USE.value)
-    clear = np.abs(oracle - 0.5) > 0.01
+    clear = np.abs(oracle - 0.5) > 1e-6
     assert (record.verdict[clear] == expect[clear]).all()
     assert (record.verdict == Verdict.LAND_USE.value).any() and (record.verdict == Verdict.KEPT.value).any()
     assert record.rule[record.verdict == "land_use"][0] == "less than 50% of the parcel on land use in classes (1, 2, 3)"
 
 
-def test_tiled_reads_give_the_same_answer(land_use, monkeypatch):
-    import geocover.sites as sites_module
+def test_tiled_reads_give_the_same_answer(land_use, monkeypatch, caplog):
+    import geocover.landuse as landuse_module
 
     path, _ = land_use
     parcels = _parcels(seed=8)
@@ -87,9 +92,13 @@ def test_tiled_reads_give_the_same_answer(land_use, monkeypatch):
     )
     mask = LandUseMask(path, allowed=(2, 4, 6), min_share=0.3)
     _, whole = screen_sites(both, land_use=mask)
-    monkeypatch.setattr(sites_module, "_MAX_WINDOW_CELLS", 10)
-    monkeypatch.setattr(sites_module, "_TILE_CELLS", 7)
-    _, tiled = screen_sites(both, land_use=mask)
+    monkeypatch.setattr(landuse_module, "_MAX_WINDOW_CELLS", 10)
+    monkeypatch.setattr(landuse_module, "_TILE_CELLS", 7)
+    with caplog.at_level(logging.DEBUG, logger="geocover.landuse"):
+        _, tiled = screen_sites(both, land_use=mask)
+    # the tiled path really ran (a patch of the wrong module would compare the whole read with itself)
+    windows = [int(m) for r in caplog.records for m in re.findall(r"read in (\d+) window", r.getMessage())]
+    assert windows and windows[0] > 1
     np.testing.assert_allclose(tiled.land_use_share, whole.land_use_share, atol=1e-12)
     assert tiled.verdict.tolist() == whole.verdict.tolist()
     assert tiled.feature.tolist() == whole.feature.tolist()
@@ -158,3 +167,34 @@ def test_land_use_mask_parameters():
     assert LandUseMask("x.tif", allowed=3, min_share="75 %").min_share == 0.75
     with pytest.raises(ParameterError, match="min_share"):
         LandUseMask("x.tif", allowed=(1,), min_share=0)
+
+
+def test_parcels_over_the_edge_count_the_area_off_the_raster_as_class_minus_one(tmp_path):
+    # 10 x 10 cells of 10 m: class 1 everywhere but column 9 (class 6); closed-form areas of boxes
+    path = tmp_path / "edge.tif"
+    classes = np.ones((10, 10), dtype=np.uint8)
+    classes[:, 9] = 6
+    with rasterio.open(path, "w", driver="GTiff", width=10, height=10, count=1, dtype="uint8", crs=CRS,
+                       transform=from_origin(X0, Y0 + 100, 10, 10), nodata=0) as dst:
+        dst.write(classes, 1)
+    cands = gpd.GeoDataFrame(geometry=[
+        box(X0 + 85, Y0 + 50, X0 + 115, Y0 + 60),        # 5 m on class 1, 10 m on class 6, 15 m off: off wins
+        box(X0 + 70, Y0 + 50, X0 + 102, Y0 + 60),        # 20 m on 1, 10 m on 6, 2 m off: class 6 wins
+        box(X0 + 95, Y0 + 50, X0 + 50_095, Y0 + 60),     # 5 m on the raster, 50 km off it
+        box(X0 - 5_000, Y0 - 5_000, X0 - 4_000, Y0 - 4_000),  # wholly off
+    ], crs=CRS)
+    _, record = screen_sites(cands, land_use=LandUseMask(path, allowed=(1,), min_share=0.1))
+    np.testing.assert_allclose(record.land_use_share, [5 / 30, 20 / 32, 0.0, 0.0], rtol=0, atol=1e-12)
+    assert record.verdict.tolist() == ["kept", "kept", "land_use", "land_use"]
+    assert record.feature.tolist() == [-1, -1, -1, -1]  # kept sites carry no class
+    inside = gpd.GeoDataFrame(geometry=[box(X0 + 10, Y0 + 10, X0 + 30, Y0 + 30)], crs=CRS)  # all class 1
+    _, strict = screen_sites(pd.concat([cands, inside]), land_use=LandUseMask(path, allowed=(1,), min_share=0.9))
+    assert strict.feature.tolist() == [-1, 6, -1, -1, -1]
+    assert strict.verdict.tolist()[-1] == "kept"
+
+
+def test_land_use_classes_given_as_text_are_read_as_codes():
+    assert LandUseMask("x.tif", allowed="12, 3").allowed == (12, 3)
+    assert LandUseMask("x.tif", forbidden="6 7").forbidden == (6, 7)
+    with pytest.raises(ParameterError, match="whole class codes"):
+        LandUseMask("x.tif", allowed="urban")

@@ -156,3 +156,12 @@ def test_kept_footprints_clear_every_zone_by_its_setback(seed, parcels, zones):
             for zone, setback in raw
         )
         assert kept[i] == clear
+
+
+def test_a_lattice_too_coarse_for_the_area_says_to_use_a_smaller_spacing():
+    from geocover.errors import LayerError
+
+    empty = lattice_candidates(box(X0, Y0, X0 + 40, Y0 + 40), 100, crs=CRS)  # floor(0.4 + 0.5) = 0 columns
+    assert len(empty) == 0
+    with pytest.raises(LayerError, match="the lattice has no point inside the study area; use a smaller lattice spacing"):
+        screen_sites(empty)
