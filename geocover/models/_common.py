@@ -76,6 +76,24 @@ def check_reach(reach: Any) -> Reach:
     return reach
 
 
+def gap_widened(value: float, rel_gap: float, *, maximize: bool) -> float:
+    """The bound proved by a solver that stopped as "optimal" with objective ``value``.
+
+    CBC and HiGHS report a MIP as optimal once the relative gap is within
+    ``rel_gap`` (python-mip's ``max_mip_gap``, relative to the larger of
+    objective and bound), so the true optimum may lie up to
+    ``rel_gap / (1 - rel_gap)`` x ``|value|`` beyond it; ``value`` itself is
+    a bound only when ``rel_gap`` is 0.
+
+    >>> gap_widened(100.0, 0.0, maximize=True) - 100.0 < 1e-6
+    True
+    >>> round(gap_widened(100.0, 0.01, maximize=False), 4)
+    98.9899
+    """
+    slack = rel_gap / (1.0 - rel_gap) * abs(value) + 1e-9 * max(1.0, abs(value))
+    return value + slack if maximize else value - slack
+
+
 def conflict_matrix(pairs: np.ndarray, m: int) -> sp.csr_matrix:
     """Symmetric site x site matrix of spacing conflicts."""
     pairs = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)

@@ -27,7 +27,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, kept_conflict, make_plan, prepare, violates_spacing
+from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, violates_spacing
 from .mclp import check_sites
 from .reduce import merge_rows
 from .solver import solve_mip
@@ -223,9 +223,10 @@ def cover_twice(
     if math.isfinite(res.bound) and res.bound >= best_val - tol:
         bound = min(bound, res.bound)
     if res.status == "optimal":
-        bound = min(bound, max(best_val, res.objective))
+        bound = min(bound, gap_widened(max(best_val, res.objective), rel_gap, maximize=True))
     bound = max(bound, obj)
-    if bound - obj <= tol or (bound - obj) / max(obj, 1e-9) <= rel_gap:
+    solver_optimal = res.status == "optimal" and best_val >= res.objective - tol
+    if bound - obj <= tol or (bound - obj) / max(obj, 1e-9) <= rel_gap or solver_optimal:
         return plan(best, obj, obj if bound - obj <= tol else bound, SolveStatus.OPTIMAL)
     proven = math.isfinite(res.bound) and res.status in ("feasible", "nosolution", "optimal")
     return plan(best, obj, bound, SolveStatus.FEASIBLE if proven else SolveStatus.HEURISTIC)

@@ -16,7 +16,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..values import Plan, Reach, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, integral, kept_conflict, make_plan, prepare, violates_spacing
+from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, integral, kept_conflict, make_plan, prepare, violates_spacing
 from .greedy import greedy_cover, prune_cover
 from .lagrange import lagrangian_cover
 from .localsearch import cover_local_search
@@ -163,6 +163,8 @@ def _mip_cover(
     # a solver bound above a known cover is not a bound (e.g. reported before the root LP): ignore it
     if best is not None and mip_bound > best_obj + 1e-6 * max(1.0, abs(best_obj)):
         mip_bound = -math.inf
+    if res.status == "optimal":
+        mip_bound = max(mip_bound, gap_widened(res.objective, rel_gap, maximize=False))
     if res.status in ("optimal", "feasible"):
         mip_bound = min(mip_bound, res.objective)  # CBC reports the bound of the tree; never above the incumbent
     if res.x is not None:
@@ -175,15 +177,13 @@ def _mip_cover(
                 best, best_obj = chosen, obj
         else:  # pragma: no cover - a solver answer that does not cover is discarded
             log.append("solver plan does not cover every row; ignored")
-    if res.status == "optimal":
-        bound = max(bound, best_obj) if best is not None else bound
-    else:
-        bound = max(bound, mip_bound)
-    bound = _ceil_bound(bound, ints)
+    # "optimal" from the solver means within rel_gap: its objective is not a bound, the widened one is
+    bound = _ceil_bound(max(bound, mip_bound), ints)
     if best is None:
         return None, math.nan, bound, "heuristic"
     gap = (best_obj - bound) / max(abs(best_obj), 1e-9)
-    if best_obj <= bound + 1e-9 or gap <= rel_gap:
+    solver_optimal = res.status == "optimal" and best_obj <= res.objective + 1e-9 * max(1.0, abs(res.objective))
+    if best_obj <= bound + 1e-9 or gap <= rel_gap or solver_optimal:
         return best, best_obj, bound, "optimal"
     return best, best_obj, bound, "feasible" if math.isfinite(bound) else "heuristic"
 
@@ -324,7 +324,8 @@ def cover_all(
     obj = float(cost[sites].sum())
     if all(s == "optimal" for s in statuses):
         status = SolveStatus.OPTIMAL
-        total_bound = obj if total_bound >= obj - 1e-6 * max(1.0, obj) or (obj - total_bound) / max(obj, 1e-9) <= rel_gap else total_bound
+        # components optimal within rel_gap prove only the summed bound; snap rounding noise, not the gap
+        total_bound = obj if total_bound >= obj - 1e-6 * max(1.0, obj) else total_bound
     elif any(s == "heuristic" for s in statuses) and not math.isfinite(total_bound):
         status = SolveStatus.HEURISTIC
     else:

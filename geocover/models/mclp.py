@@ -20,7 +20,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, kept_conflict, make_plan, prepare, violates_spacing
+from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, violates_spacing
 from .greedy import covered_weight, greedy_most, iterated_swap, swap_most
 from .lagrange import lagrangian_most
 from .reduce import components, dominated_columns, merge_rows
@@ -236,9 +236,10 @@ def solve_most_core(
             if val > best_val + tol:
                 best, best_val = chosen, val
     if r.status == "optimal":
-        bound = min(bound, max(best_val, r.objective))
+        bound = min(bound, gap_widened(max(best_val, r.objective), rel_gap, maximize=True))
     bound = max(bound, best_val)
-    if best_val >= bound - tol or (bound - best_val) / max(best_val, 1e-9) <= rel_gap:
+    solver_optimal = r.status == "optimal" and best_val >= r.objective - tol
+    if best_val >= bound - tol or (bound - best_val) / max(best_val, 1e-9) <= rel_gap or solver_optimal:
         return best, best_val, bound, "optimal"
     proven = valid_bound
     return best, best_val, bound, "feasible" if proven or bound < total - tol else "heuristic"
@@ -488,5 +489,6 @@ def _solve_by_components(mat, w, paid, conflicts, p, ncomp, row_lab, col_lab, kw
     log.append(f"components: {len(curves)} solved apart, combined by dynamic programming")
     total = float(np.asarray(w).sum())
     if all(s == "optimal" for s in statuses):
-        return chosen_all, val, val, "optimal"
+        # each point is optimal within rel_gap only: the combined bounds, not the value, bound the total
+        return chosen_all, val, max(ub, val), "optimal"
     return chosen_all, val, max(ub, val), "feasible" if ub < total else "heuristic"

@@ -11,7 +11,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, integral, kept_conflict, make_plan, violates_spacing
+from ._common import Clock, check_common, check_reach, gap_widened, integral, kept_conflict, make_plan, violates_spacing
 from .greedy import covered_weight
 from .mclp import build_most_core
 from .solver import solve_mip
@@ -175,7 +175,8 @@ def cover_target(
     if math.isfinite(res.bound) and res.bound <= best_obj + 1e-6 * max(1.0, abs(best_obj)):
         lower = max(lower, res.bound)
     if res.status == "optimal":
-        lower = max(lower, min(best_obj, res.objective))
+        lower = max(lower, gap_widened(min(best_obj, res.objective), rel_gap, maximize=False))
+    solver_optimal = res.status == "optimal" and best_obj <= res.objective + 1e-9 * max(1.0, abs(res.objective))
     if integral(cost) and math.isfinite(lower):
         lower = math.ceil(lower - 1e-6)
     sites = np.union1d(core.fixed, core.columns[best])
@@ -186,6 +187,6 @@ def cover_target(
         raise AssertionError("cover_target: plan violates the spacing rule")
     obj = float(cost_all[sites].sum())
     bound = min(obj, fixed_cost + lower)
-    if obj - bound <= 1e-9 * max(obj, 1.0) or (obj - bound) / max(obj, 1e-9) <= rel_gap:
+    if obj - bound <= 1e-9 * max(obj, 1.0) or (obj - bound) / max(obj, 1e-9) <= rel_gap or solver_optimal:
         return plan(sites, obj, obj if obj - bound <= 1e-9 * max(obj, 1.0) else bound, SolveStatus.OPTIMAL)
     return plan(sites, obj, bound, SolveStatus.FEASIBLE if math.isfinite(res.bound) else SolveStatus.HEURISTIC)
