@@ -105,6 +105,19 @@ def conflict_matrix(pairs: np.ndarray, m: int) -> sp.csr_matrix:
     return mat
 
 
+def spacing_rows(conflicts: sp.csr_matrix | None, n_var: int) -> sp.csr_matrix:
+    """One MIP row ``x_i + x_j <= 1`` per spacing conflict; site columns come first of ``n_var``.
+
+    >>> spacing_rows(conflict_matrix(np.array([[0, 2]]), 3), 5).toarray().tolist()
+    [[1.0, 0.0, 1.0, 0.0, 0.0]]
+    """
+    if conflicts is None or not conflicts.nnz:
+        return sp.csr_matrix((0, n_var))
+    cu = sp.triu(conflicts, k=1).tocoo()
+    k = len(cu.row)
+    return sp.csr_matrix((np.ones(2 * k), (np.repeat(np.arange(k), 2), np.stack([cu.row, cu.col], 1).ravel())), shape=(k, n_var))
+
+
 def kept_conflict(reach: Reach) -> bool:
     pairs = reach.close_pairs
     if not len(pairs):

@@ -27,7 +27,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, violates_spacing
+from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, spacing_rows, violates_spacing
 from .mclp import check_sites
 from .reduce import merge_rows
 from .solver import solve_mip
@@ -182,12 +182,9 @@ def cover_twice(
     ]
     sense = [b"G"] * (2 * n) + [b"L", b"G"]
     rhs = [0.0] * (2 * n) + [float(p), floor_w - tol]
-    if conf is not None and conf.nnz:
-        cu = sp.triu(conf, k=1).tocoo()
-        kk = len(cu.row)
-        blocks.append(sp.csr_matrix((np.ones(2 * kk), (np.repeat(np.arange(kk), 2), np.stack([cu.row, cu.col], 1).ravel())), shape=(kk, m + 2 * n)))
-        sense += [b"L"] * kk
-        rhs += [1.0] * kk
+    blocks.append(spacing_rows(conf, m + 2 * n))
+    sense += [b"L"] * blocks[-1].shape[0]
+    rhs += [1.0] * blocks[-1].shape[0]
     M = sp.vstack(blocks, format="csr")
     lb = np.zeros(m + 2 * n)
     lb[kept] = 1.0

@@ -16,7 +16,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..values import Plan, Reach, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, integral, kept_conflict, make_plan, prepare, violates_spacing
+from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, integral, kept_conflict, make_plan, prepare, spacing_rows, violates_spacing
 from .greedy import greedy_cover, prune_cover
 from .lagrange import lagrangian_cover
 from .localsearch import cover_local_search
@@ -143,13 +143,11 @@ def _mip_cover(
     A = mat.astype(np.float64)
     sense = [b"G"] * n
     rhs = [1.0] * n
-    if conflicts is not None and conflicts.nnz:
-        cu = sp.triu(conflicts, k=1).tocoo()
-        k = len(cu.row)
-        P = sp.csr_matrix((np.ones(2 * k), (np.repeat(np.arange(k), 2), np.stack([cu.row, cu.col], 1).ravel())), shape=(k, m))
+    P = spacing_rows(conflicts, m)
+    if P.shape[0]:
         A = sp.vstack([A, P], format="csr")
-        sense += [b"L"] * k
-        rhs += [1.0] * k
+        sense += [b"L"] * P.shape[0]
+        rhs += [1.0] * P.shape[0]
     start = None
     if best is not None:
         start = np.zeros(m)

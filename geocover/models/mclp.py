@@ -20,7 +20,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, violates_spacing
+from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, spacing_rows, violates_spacing
 from .greedy import covered_weight, greedy_most, iterated_swap, swap_most
 from .lagrange import lagrangian_most
 from .reduce import components, dominated_columns, merge_rows
@@ -207,13 +207,9 @@ def solve_most_core(
     blocks = [A, R]
     sense = [b"G"] * n + [b"L"]
     rhs = [0.0] * n + [float(cap)]
-    if conflicts is not None and conflicts.nnz:
-        cu = sp.triu(conflicts, k=1).tocoo()
-        k = len(cu.row)
-        P = sp.csr_matrix((np.ones(2 * k), (np.repeat(np.arange(k), 2), np.stack([cu.row, cu.col], 1).ravel())), shape=(k, m + n))
-        blocks.append(P)
-        sense += [b"L"] * k
-        rhs += [1.0] * k
+    blocks.append(spacing_rows(conflicts, m + n))
+    sense += [b"L"] * blocks[-1].shape[0]
+    rhs += [1.0] * blocks[-1].shape[0]
     M = sp.vstack(blocks, format="csr")
     c = np.concatenate([np.zeros(m), w])
     integer = np.concatenate([np.ones(m, dtype=bool), np.zeros(n, dtype=bool)])

@@ -11,7 +11,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, gap_widened, integral, kept_conflict, make_plan, violates_spacing
+from ._common import Clock, check_common, check_reach, gap_widened, integral, kept_conflict, make_plan, spacing_rows, violates_spacing
 from .greedy import covered_weight
 from .mclp import build_most_core
 from .solver import solve_mip
@@ -145,12 +145,9 @@ def cover_target(
     blocks = [A, sp.csr_matrix(np.concatenate([np.zeros(mc), w])[None, :])]
     sense = [b"G"] * n + [b"G"]
     rhs = [0.0] * n + [need_eff]
-    if core.conflicts is not None and core.conflicts.nnz:
-        cu = sp.triu(core.conflicts, k=1).tocoo()
-        k = len(cu.row)
-        blocks.append(sp.csr_matrix((np.ones(2 * k), (np.repeat(np.arange(k), 2), np.stack([cu.row, cu.col], 1).ravel())), shape=(k, mc + n)))
-        sense += [b"L"] * k
-        rhs += [1.0] * k
+    blocks.append(spacing_rows(core.conflicts, mc + n))
+    sense += [b"L"] * blocks[-1].shape[0]
+    rhs += [1.0] * blocks[-1].shape[0]
     M = sp.vstack(blocks, format="csr")
     start = None
     if best is not None:
