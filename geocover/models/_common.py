@@ -94,6 +94,20 @@ def gap_widened(value: float, rel_gap: float, *, maximize: bool) -> float:
     return value + slack if maximize else value - slack
 
 
+def start_call(reach: Any, *, time_limit: Any, rel_gap: Any, threads: Any, seed: Any, solver: Any, reduce: bool) -> tuple[Reach, str, Clock, dict[str, Any]]:
+    """Check the arguments every model entry point shares and start its clock.
+
+    Returns the reach, the solver name in lower case, the clock (with time
+    kept back for evaluating the plan) and those arguments as plan parameters.
+    """
+    reach = check_reach(reach)
+    check_common(time_limit, rel_gap, threads, seed, solver)
+    clock = Clock(time_limit)
+    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
+    params = {"time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
+    return reach, str(solver).lower(), clock, params
+
+
 def conflict_matrix(pairs: np.ndarray, m: int) -> sp.csr_matrix:
     """Symmetric site x site matrix of spacing conflicts."""
     pairs = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)

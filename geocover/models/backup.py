@@ -27,7 +27,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, spacing_rows, violates_spacing
+from ._common import conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, spacing_rows, start_call, violates_spacing
 from .mclp import check_sites
 from .reduce import merge_rows
 from .solver import solve_mip
@@ -126,18 +126,14 @@ def cover_twice(
     >>> p.sites.tolist(), p.objective
     ([0, 1], 4.0)
     """
-    reach = check_reach(reach)
-    check_common(time_limit, rel_gap, threads, seed, solver)
-    solver = str(solver).lower()
+    reach, solver, clock, common = start_call(reach, time_limit=time_limit, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, reduce=reduce)
     p = check_sites(sites, reach)
     if isinstance(first_floor, bool) or not isinstance(first_floor, (int, float, np.floating)) or not (0 <= float(first_floor) <= 1):
         raise ParameterError(f"first_floor: must be a share in [0, 1] of the coverable people, got {first_floor!r}", param="first_floor")
     if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
         raise ParameterError(f"k: must be a whole number >= 1 (2 for backup coverage), got {k!r}", param="k")
     k = int(k)
-    clock = Clock(time_limit)
-    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
-    params: dict[str, Any] = {"sites": p, "first_floor": float(first_floor), "k": k, "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
+    params: dict[str, Any] = {"sites": p, "first_floor": float(first_floor), "k": k, **common}
     log: list[str] = []
     m = reach.shape[1]
     kept = np.flatnonzero(np.asarray(reach.role) == SiteRole.KEPT)

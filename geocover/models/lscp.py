@@ -16,7 +16,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..values import Plan, Reach, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, integral, kept_conflict, make_plan, prepare, spacing_rows, violates_spacing
+from ._common import Clock, conflict_matrix, gap_widened, integral, kept_conflict, make_plan, prepare, spacing_rows, start_call, violates_spacing
 from .greedy import greedy_cover, prune_cover
 from .lagrange import lagrangian_cover
 from .localsearch import cover_local_search
@@ -235,16 +235,12 @@ def cover_all(
     >>> p.sites.tolist(), p.objective, p.status.value
     ([1, 2], 2.0, 'optimal')
     """
-    reach = check_reach(reach)
-    check_common(time_limit, rel_gap, threads, seed, solver)
-    solver = str(solver).lower()
-    clock = Clock(time_limit)
-    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
+    reach, solver, clock, common = start_call(reach, time_limit=time_limit, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, reduce=reduce)
     n, m = reach.shape
     prep = prepare(reach)
     cost = prep.cost if use_cost else np.ones(m)
     kept = np.flatnonzero(prep.kept)
-    params: dict[str, Any] = {"use_cost": bool(use_cost), "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
+    params: dict[str, Any] = {"use_cost": bool(use_cost), **common}
     log: list[str] = []
 
     def plan(sites: np.ndarray, obj: float, bound: float, status: SolveStatus) -> Plan:

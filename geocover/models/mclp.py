@@ -20,7 +20,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, spacing_rows, violates_spacing
+from ._common import Clock, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, spacing_rows, start_call, violates_spacing
 from .greedy import covered_weight, greedy_most, iterated_swap, swap_most
 from .lagrange import lagrangian_most
 from .reduce import components, dominated_columns, merge_rows
@@ -362,9 +362,7 @@ def cover_most(
     >>> p.sites.tolist(), p.objective
     ([0], 6.0)
     """
-    reach = check_reach(reach)
-    check_common(time_limit, rel_gap, threads, seed, solver)
-    solver = str(solver).lower()
+    reach, solver, clock, common = start_call(reach, time_limit=time_limit, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, reduce=reduce)
     if (sites is None) == (budget is None):
         raise ParameterError("cover_most: give exactly one of sites= (number of new sites) or budget= (total cost)", param="sites" if sites is None else "budget")
     kept = np.asarray(reach.role) == SiteRole.KEPT
@@ -376,9 +374,7 @@ def cover_most(
             raise ParameterError(f"budget: must be a finite number, got {budget!r}", param="budget")
         if float(budget) < kept_cost - 1e-9:
             raise ParameterError(f"budget: {budget:g} is below the cost of the kept sites ({kept_cost:g}); raise it to at least {kept_cost:g}", param="budget")
-    clock = Clock(time_limit)
-    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
-    params: dict[str, Any] = {"sites": sites, "budget": budget, "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
+    params: dict[str, Any] = {"sites": sites, "budget": budget, **common}
     log: list[str] = []
 
     def plan(chosen: np.ndarray, obj: float, bound: float, status: SolveStatus) -> Plan:

@@ -11,7 +11,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, gap_widened, integral, kept_conflict, make_plan, spacing_rows, violates_spacing
+from ._common import gap_widened, integral, kept_conflict, make_plan, spacing_rows, start_call, violates_spacing
 from .greedy import covered_weight
 from .mclp import build_most_core
 from .solver import solve_mip
@@ -95,17 +95,13 @@ def cover_target(
     >>> cover_target(r, 0.9).sites.tolist()
     [0]
     """
-    reach = check_reach(reach)
-    check_common(time_limit, rel_gap, threads, seed, solver)
-    solver = str(solver).lower()
+    reach, solver, clock, common = start_call(reach, time_limit=time_limit, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, reduce=reduce)
     if isinstance(share, bool) or not isinstance(share, (int, float, np.floating)) or not (0 < float(share) <= 1):
         raise ParameterError(f"share: must be a fraction in (0, 1] of the coverable people, got {share!r} (write 95 % as 0.95)", param="share")
     share = float(share)
-    clock = Clock(time_limit)
-    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
     m = reach.shape[1]
     cost_all = np.asarray(reach.cost, dtype=np.float64) if use_cost else np.ones(m)
-    params: dict[str, Any] = {"share": share, "use_cost": bool(use_cost), "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
+    params: dict[str, Any] = {"share": share, "use_cost": bool(use_cost), **common}
     log: list[str] = []
 
     def plan(sites: np.ndarray, obj: float, bound: float, status: SolveStatus) -> Plan:
