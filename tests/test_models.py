@@ -30,8 +30,7 @@ FAST = settings(max_examples=25, deadline=None, suppress_health_check=[HealthChe
 @pytest.mark.parametrize("name", sorted(ORLIB_OPTIMA))
 def test_orlib_scp4_reaches_published_optimum(name: str) -> None:
     path = ORLIB / f"scp{name}.txt"
-    if not path.exists():
-        pytest.skip(f"OR-Library instance not found at {path} (it ships in tests/data/orlib/)")
+    assert path.exists(), f"OR-Library instance missing at {path}: it ships in tests/data/orlib/, restore it from git"
     mat, cost = read_orlib(path)
     plan = cover_all(Reach.from_sparse(mat, cost=cost), time_limit=30)
     assert plan.status == SolveStatus.OPTIMAL
@@ -44,8 +43,7 @@ def test_orlib_scp4_reaches_published_optimum(name: str) -> None:
 
 def test_orlib_without_reductions_same_optimum() -> None:
     path = ORLIB / "scp41.txt"
-    if not path.exists():
-        pytest.skip(f"OR-Library instance not found at {path}")
+    assert path.exists(), f"OR-Library instance missing at {path}: it ships in tests/data/orlib/, restore it from git"
     mat, cost = read_orlib(path)
     plan = cover_all(Reach.from_sparse(mat, cost=cost), reduce=False, time_limit=30)
     assert plan.objective == 429 and plan.status == SolveStatus.OPTIMAL
