@@ -20,7 +20,7 @@ from ._common import Clock, conflict_matrix, gap_widened, integral, kept_conflic
 from .greedy import greedy_cover, prune_cover
 from .lagrange import lagrangian_cover
 from .localsearch import cover_local_search
-from .reduce import components, reduce_lscp
+from .reduce import components, members, reduce_lscp
 from .solver import solve_mip
 
 logger = logging.getLogger(__name__)
@@ -281,14 +281,10 @@ def cover_all(
     if ncomp:
         # process components in order; each gets time in proportion to its size
         sizes = np.bincount(row_lab, weights=np.diff(mat.indptr), minlength=ncomp) + 1.0
-        rows_by = np.argsort(row_lab, kind="stable")
-        row_starts = np.searchsorted(row_lab[rows_by], np.arange(ncomp + 1))
-        cols_by = np.argsort(col_lab, kind="stable")
-        col_starts = np.searchsorted(col_lab[cols_by], np.arange(ncomp + 1))
+        row_sets, col_sets = members(row_lab, ncomp), members(col_lab, ncomp)
         remaining = float(sizes.sum())
         for c in range(ncomp):
-            rows = rows_by[row_starts[c] : row_starts[c + 1]]
-            cols = cols_by[col_starts[c] : col_starts[c + 1]]
+            rows, cols = row_sets[c], col_sets[c]
             if len(rows) == 0:
                 remaining -= sizes[c]
                 continue

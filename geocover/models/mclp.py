@@ -23,7 +23,7 @@ from ..values import Plan, Reach, SiteRole, SolveStatus
 from ._common import Clock, conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, spacing_rows, start_call, violates_spacing
 from .greedy import covered_weight, greedy_most, iterated_swap, swap_most
 from .lagrange import lagrangian_most
-from .reduce import components, dominated_columns, merge_rows
+from .reduce import components, dominated_columns, members, merge_rows
 from .solver import solve_mip
 
 logger = logging.getLogger(__name__)
@@ -447,16 +447,12 @@ def _solve_by_components(mat, w, paid, conflicts, p, ncomp, row_lab, col_lab, kw
     """Per-component trade-off curves combined exactly by dynamic programming."""
     clock: Clock = kw["clock"]
     log: list[str] = kw["log"]
-    rows_by = np.argsort(row_lab, kind="stable")
-    row_starts = np.searchsorted(row_lab[rows_by], np.arange(ncomp + 1))
-    cols_by = np.argsort(col_lab, kind="stable")
-    col_starts = np.searchsorted(col_lab[cols_by], np.arange(ncomp + 1))
+    row_sets, col_sets = members(row_lab, ncomp), members(col_lab, ncomp)
     sizes = np.bincount(row_lab, weights=np.diff(mat.indptr), minlength=ncomp) + 1.0
     remaining = float(sizes.sum())
     curves, bounds, plans, cols_list, statuses = [], [], [], [], []
     for c in range(ncomp):
-        rows = rows_by[row_starts[c] : row_starts[c + 1]]
-        cols = cols_by[col_starts[c] : col_starts[c + 1]]
+        rows, cols = row_sets[c], col_sets[c]
         share = max(clock.left, 0.0) * sizes[c] / max(remaining, 1.0)
         remaining -= sizes[c]
         if len(rows) == 0:
