@@ -279,13 +279,35 @@ def test_parameter_errors_name_the_parameter() -> None:
     assert e.value.param == "reach"
 
 
-@pytest.mark.skipif(highs_available(), reason="HiGHS loads here; the missing-library error cannot be shown")
-def test_highs_missing_is_a_clear_solver_error() -> None:
+def test_highs_missing_is_a_clear_solver_error(monkeypatch: pytest.MonkeyPatch) -> None:
+    # HiGHS may be installed here (highsbox): make python-mip fail to load it, as where it is not
+    import mip
+
+    import geocover.models.solver as solver_mod
+
+    real_model = mip.Model
+
+    def no_highs(*args, **kwargs):
+        if str(kwargs.get("solver_name", "")).upper() == "HIGHS":
+            raise FileNotFoundError("libhighs.so: cannot open shared object file")
+        return real_model(*args, **kwargs)
+
+    monkeypatch.setattr(mip, "Model", no_highs)
+    monkeypatch.setattr(solver_mod, "highs_available", lambda: False)
     with pytest.raises(SolverError, match="highsbox"):
         solve_mip(np.ones(3), sp.csr_matrix(np.eye(3)), np.array([b"G"] * 3), np.ones(3), solver="highs")
     # raised up front, even when greedy alone would prove the plan optimal
     with pytest.raises(SolverError, match="solver='cbc'"):
         cover_all(Reach.from_sparse(sp.csr_matrix(np.eye(3))), solver="highs")
+
+
+@pytest.mark.skipif(not highs_available(), reason="python-mip cannot load HiGHS here (needs highsbox or highspy<=1.14)")
+@pytest.mark.parametrize("seed", [0, 1])
+def test_highs_back_end_reaches_the_reference_optima(seed: int) -> None:
+    # optima by scipy.optimize.milp (HiGHS through scipy, not through python-mip)
+    r = geo_instance(seed, 60, 25, 2.0)
+    assert cover_all(r, solver="highs").objective == pytest.approx(ref_lscp(r))
+    assert cover_most(r, sites=3, solver="highs").objective == pytest.approx(ref_mclp(r, p=3))
 
 
 def test_deterministic_ties_broken_by_site_order() -> None:
