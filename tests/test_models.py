@@ -277,6 +277,11 @@ def test_parameter_errors_name_the_parameter() -> None:
     with pytest.raises(ParameterError) as e:
         cover_all(sp.csr_matrix([[1]]))  # type: ignore[arg-type]
     assert e.value.param == "reach"
+    # True/False are ints to Python, not seconds, fractions or counts
+    for name in ("time_limit", "rel_gap", "threads", "seed"):
+        with pytest.raises(ParameterError) as e:
+            cover_all(reach, **{name: True})
+        assert e.value.param == name
 
 
 def test_highs_missing_is_a_clear_solver_error(monkeypatch: pytest.MonkeyPatch) -> None:

@@ -51,13 +51,14 @@ class Clock:
 
 
 def check_common(time_limit: Any, rel_gap: Any, threads: Any, seed: Any, solver: Any) -> None:
-    if not (isinstance(time_limit, (int, float)) and math.isfinite(time_limit) and time_limit > 0):
-        raise ParameterError(f"time_limit: must be a positive number of seconds, got {time_limit!r}", param="time_limit")
-    if not (isinstance(rel_gap, (int, float)) and 0 <= rel_gap < 1):
-        raise ParameterError(f"rel_gap: must be in [0, 1), got {rel_gap!r}", param="rel_gap")
-    if not (isinstance(threads, (int, np.integer)) and threads >= 1):
+    # bool is an int to Python, but time_limit=True (one second) is a slip, not a choice
+    if isinstance(time_limit, bool) or not (isinstance(time_limit, (int, float)) and math.isfinite(time_limit) and time_limit > 0):
+        raise ParameterError(f"time_limit: must be a positive number of seconds (e.g. 60), got {time_limit!r}", param="time_limit")
+    if isinstance(rel_gap, bool) or not (isinstance(rel_gap, (int, float)) and 0 <= rel_gap < 1):
+        raise ParameterError(f"rel_gap: must be a fraction in [0, 1) (e.g. 1e-4 for 0.01 %), got {rel_gap!r}", param="rel_gap")
+    if isinstance(threads, bool) or not (isinstance(threads, (int, np.integer)) and threads >= 1):
         raise ParameterError(f"threads: must be a whole number >= 1, got {threads!r}", param="threads")
-    if not isinstance(seed, (int, np.integer)):
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
         raise ParameterError(f"seed: must be a whole number, got {seed!r}", param="seed")
     if str(solver).lower() not in ("cbc", "highs"):
         raise ParameterError(f"solver: unknown solver {solver!r}; use 'cbc' or 'highs'", param="solver")
