@@ -25,6 +25,7 @@ class Clock:
         self.t0 = time.perf_counter()
         self.limit = float(limit)
         self.phases: dict[str, float] = {}
+        self.reserved = 0.0  #: seconds kept back for the work after the solver
         self._last = self.t0
 
     @property
@@ -41,8 +42,9 @@ class Clock:
 
     def reserve(self, seconds: float) -> None:
         """Keep ``seconds`` of the budget for the work after the solver (evaluating the plan)."""
-        self.limit = max(self.limit - max(float(seconds), 0.0), 0.0)
-        self.reserved = getattr(self, "reserved", 0.0) + max(float(seconds), 0.0)
+        seconds = max(float(seconds), 0.0)
+        self.limit = max(self.limit - seconds, 0.0)
+        self.reserved += seconds
 
     def mark(self, phase: str) -> None:
         now = time.perf_counter()
