@@ -30,8 +30,7 @@ FAST = settings(max_examples=25, deadline=None, suppress_health_check=[HealthChe
 @pytest.mark.parametrize("name", sorted(ORLIB_OPTIMA))
 def test_orlib_scp4_reaches_published_optimum(name: str) -> None:
     path = ORLIB / f"scp{name}.txt"
-    if not path.exists():
-        pytest.skip(f"OR-Library instance not found at {path} (it ships in tests/data/orlib/)")
+    assert path.exists(), f"OR-Library instance missing at {path}: it ships in tests/data/orlib/, restore it from git"
     mat, cost = read_orlib(path)
     plan = cover_all(Reach.from_sparse(mat, cost=cost), time_limit=30)
     assert plan.status == SolveStatus.OPTIMAL
@@ -44,8 +43,7 @@ def test_orlib_scp4_reaches_published_optimum(name: str) -> None:
 
 def test_orlib_without_reductions_same_optimum() -> None:
     path = ORLIB / "scp41.txt"
-    if not path.exists():
-        pytest.skip(f"OR-Library instance not found at {path}")
+    assert path.exists(), f"OR-Library instance missing at {path}: it ships in tests/data/orlib/, restore it from git"
     mat, cost = read_orlib(path)
     plan = cover_all(Reach.from_sparse(mat, cost=cost), reduce=False, time_limit=30)
     assert plan.objective == 429 and plan.status == SolveStatus.OPTIMAL
@@ -279,15 +277,42 @@ def test_parameter_errors_name_the_parameter() -> None:
     with pytest.raises(ParameterError) as e:
         cover_all(sp.csr_matrix([[1]]))  # type: ignore[arg-type]
     assert e.value.param == "reach"
+    # True/False are ints to Python, not seconds, fractions or counts
+    for name in ("time_limit", "rel_gap", "threads", "seed"):
+        with pytest.raises(ParameterError) as e:
+            cover_all(reach, **{name: True})
+        assert e.value.param == name
 
 
-@pytest.mark.skipif(highs_available(), reason="HiGHS loads here; the missing-library error cannot be shown")
-def test_highs_missing_is_a_clear_solver_error() -> None:
+def test_highs_missing_is_a_clear_solver_error(monkeypatch: pytest.MonkeyPatch) -> None:
+    # HiGHS may be installed here (highsbox): make python-mip fail to load it, as where it is not
+    import mip
+
+    import geocover.models.solver as solver_mod
+
+    real_model = mip.Model
+
+    def no_highs(*args, **kwargs):
+        if str(kwargs.get("solver_name", "")).upper() == "HIGHS":
+            raise FileNotFoundError("libhighs.so: cannot open shared object file")
+        return real_model(*args, **kwargs)
+
+    monkeypatch.setattr(mip, "Model", no_highs)
+    monkeypatch.setattr(solver_mod, "highs_available", lambda: False)
     with pytest.raises(SolverError, match="highsbox"):
         solve_mip(np.ones(3), sp.csr_matrix(np.eye(3)), np.array([b"G"] * 3), np.ones(3), solver="highs")
     # raised up front, even when greedy alone would prove the plan optimal
     with pytest.raises(SolverError, match="solver='cbc'"):
         cover_all(Reach.from_sparse(sp.csr_matrix(np.eye(3))), solver="highs")
+
+
+@pytest.mark.skipif(not highs_available(), reason="python-mip cannot load HiGHS here (needs highsbox or highspy<=1.14)")
+@pytest.mark.parametrize("seed", [0, 1])
+def test_highs_back_end_reaches_the_reference_optima(seed: int) -> None:
+    # optima by scipy.optimize.milp (HiGHS through scipy, not through python-mip)
+    r = geo_instance(seed, 60, 25, 2.0)
+    assert cover_all(r, solver="highs").objective == pytest.approx(ref_lscp(r))
+    assert cover_most(r, sites=3, solver="highs").objective == pytest.approx(ref_mclp(r, p=3))
 
 
 def test_deterministic_ties_broken_by_site_order() -> None:

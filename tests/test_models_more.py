@@ -207,3 +207,27 @@ def test_target_instance_where_continuous_highs_reference_was_wrong() -> None:
     x[plan.sites] = True
     pairs = reach.close_pairs
     assert not (x[pairs[:, 0]] & x[pairs[:, 1]]).any()
+
+
+# ----------------------------------------------------------------------------- bounds under a loose rel_gap
+def _real_valued(seed: int) -> Reach:
+    """A geographic instance with non-integral weights and costs (no rounding of bounds can help)."""
+    r0 = geo_instance(seed, 60, 25, 2.0)
+    rng = np.random.default_rng(seed)
+    return Reach.from_sparse(r0.matrix, weight=r0.weight * rng.uniform(0.5, 1.5, len(r0.weight)), cost=r0.cost * rng.uniform(0.7, 1.3, len(r0.cost)), role=r0.role)
+
+
+@pytest.mark.parametrize("seed", [7, 11])
+def test_bounds_stay_valid_when_solver_stops_within_rel_gap(seed: int) -> None:
+    # the solver calls a MIP optimal within rel_gap (5 % here), so its objective is not a bound;
+    # seeds 7 and 11 gave a coverage-target "bound" above the optimum before the fix.
+    # Optima by scipy.optimize.milp (HiGHS), an independent solver.
+    r = _real_valued(seed)
+    t = cover_target(r, 0.9, rel_gap=0.05)
+    assert t.bound <= ref_target(r, 0.9) + 1e-7 <= t.objective + 2e-7
+    lscp = cover_all(r, rel_gap=0.05)
+    assert lscp.bound <= ref_lscp(r) + 1e-7 <= lscp.objective + 2e-7
+    most = cover_most(r, sites=3, rel_gap=0.05)
+    assert most.bound >= ref_mclp(r, p=3) - 1e-7 >= most.objective - 2e-7
+    twice = cover_twice(r, sites=3, first_floor=0.5, rel_gap=0.05)
+    assert twice.bound >= ref_backup(r, 3, 0.5) - 1e-7 >= twice.objective - 2e-7

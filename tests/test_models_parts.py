@@ -66,6 +66,9 @@ def test_reduce_lscp_fixes_essential_sites() -> None:
     core = reduce_lscp(mat, np.ones(4))
     assert 3 in core.fixed.tolist()
     assert core.matrix.shape[0] <= 1
+    # by hand: column 0 covers a subset of column 1 at equal cost and column 2 covers nothing, so both
+    # drop; row 0 is then left with column 1 alone, which is essential too: {1, 3} is the whole (optimal) plan
+    assert core.fixed.tolist() == [1, 3] and core.matrix.shape == (0, 0) and not core.infeasible
 
 
 def test_components_are_independent_blocks() -> None:

@@ -27,7 +27,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, kept_conflict, make_plan, prepare, violates_spacing
+from ._common import conflict_matrix, gap_widened, kept_conflict, make_plan, prepare, spacing_rows, start_call, violates_spacing
 from .mclp import check_sites
 from .reduce import merge_rows
 from .solver import solve_mip
@@ -126,18 +126,14 @@ def cover_twice(
     >>> p.sites.tolist(), p.objective
     ([0, 1], 4.0)
     """
-    reach = check_reach(reach)
-    check_common(time_limit, rel_gap, threads, seed, solver)
-    solver = str(solver).lower()
+    reach, solver, clock, common = start_call(reach, time_limit=time_limit, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, reduce=reduce)
     p = check_sites(sites, reach)
     if isinstance(first_floor, bool) or not isinstance(first_floor, (int, float, np.floating)) or not (0 <= float(first_floor) <= 1):
         raise ParameterError(f"first_floor: must be a share in [0, 1] of the coverable people, got {first_floor!r}", param="first_floor")
     if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
         raise ParameterError(f"k: must be a whole number >= 1 (2 for backup coverage), got {k!r}", param="k")
     k = int(k)
-    clock = Clock(time_limit)
-    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
-    params: dict[str, Any] = {"sites": p, "first_floor": float(first_floor), "k": k, "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
+    params: dict[str, Any] = {"sites": p, "first_floor": float(first_floor), "k": k, **common}
     log: list[str] = []
     m = reach.shape[1]
     kept = np.flatnonzero(np.asarray(reach.role) == SiteRole.KEPT)
@@ -182,12 +178,9 @@ def cover_twice(
     ]
     sense = [b"G"] * (2 * n) + [b"L", b"G"]
     rhs = [0.0] * (2 * n) + [float(p), floor_w - tol]
-    if conf is not None and conf.nnz:
-        cu = sp.triu(conf, k=1).tocoo()
-        kk = len(cu.row)
-        blocks.append(sp.csr_matrix((np.ones(2 * kk), (np.repeat(np.arange(kk), 2), np.stack([cu.row, cu.col], 1).ravel())), shape=(kk, m + 2 * n)))
-        sense += [b"L"] * kk
-        rhs += [1.0] * kk
+    blocks.append(spacing_rows(conf, m + 2 * n))
+    sense += [b"L"] * blocks[-1].shape[0]
+    rhs += [1.0] * blocks[-1].shape[0]
     M = sp.vstack(blocks, format="csr")
     lb = np.zeros(m + 2 * n)
     lb[kept] = 1.0
@@ -223,9 +216,10 @@ def cover_twice(
     if math.isfinite(res.bound) and res.bound >= best_val - tol:
         bound = min(bound, res.bound)
     if res.status == "optimal":
-        bound = min(bound, max(best_val, res.objective))
+        bound = min(bound, gap_widened(max(best_val, res.objective), rel_gap, maximize=True))
     bound = max(bound, obj)
-    if bound - obj <= tol or (bound - obj) / max(obj, 1e-9) <= rel_gap:
+    solver_optimal = res.status == "optimal" and best_val >= res.objective - tol
+    if bound - obj <= tol or (bound - obj) / max(obj, 1e-9) <= rel_gap or solver_optimal:
         return plan(best, obj, obj if bound - obj <= tol else bound, SolveStatus.OPTIMAL)
     proven = math.isfinite(res.bound) and res.status in ("feasible", "nosolution", "optimal")
     return plan(best, obj, bound, SolveStatus.FEASIBLE if proven else SolveStatus.HEURISTIC)

@@ -13,7 +13,7 @@ from ..values import Plan, Reach, SiteRole, SolveStatus
 from ._common import Clock, check_common, check_reach, kept_conflict
 from .lscp import cover_all
 from .mclp import _drop_idle, build_most_core, combine_curves, most_curve
-from .reduce import components
+from .reduce import components, members
 
 logger = logging.getLogger(__name__)
 
@@ -138,11 +138,11 @@ def tradeoff(
         ncomp, row_lab, col_lab = 0, np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
     curves, bounds, plans, cols_list = [], [], [], []
     statuses: list[list[str]] = []
-    points = sum(int(min(P, core.paid[col_lab == c].sum())) + 1 for c in range(ncomp)) if ncomp else 1
+    row_sets, col_sets = members(row_lab, ncomp), members(col_lab, ncomp)
+    points = sum(int(min(P, core.paid[cols].sum())) + 1 for cols in col_sets) if ncomp else 1
     per_point = max(clock.left, 0.0) / max(points, 1)
     for c in range(ncomp):
-        rows = np.flatnonzero(row_lab == c)
-        cols = np.flatnonzero(col_lab == c)
+        rows, cols = row_sets[c], col_sets[c]
         if len(rows) == 0:
             continue
         sub = mat[rows][:, cols]

@@ -255,7 +255,6 @@ def iterated_swap(
     res = np.ones(m) if resource is None else np.asarray(resource, dtype=np.float64)
     best = np.array(sorted(np.asarray(chosen, dtype=np.int64)), dtype=np.int64)
     best_val = covered_weight(mat, weight, best)
-    movable = best if swappable is None else best[np.asarray(swappable, dtype=bool)[best]]
     paid_pool = np.flatnonzero(res > 0)
     for _ in range(iterations):
         if deadline is not None and time.perf_counter() > deadline:

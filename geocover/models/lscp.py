@@ -16,11 +16,11 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..values import Plan, Reach, SolveStatus
-from ._common import Clock, check_common, check_reach, conflict_matrix, integral, kept_conflict, make_plan, prepare, violates_spacing
+from ._common import Clock, conflict_matrix, gap_widened, integral, kept_conflict, make_plan, prepare, spacing_rows, start_call, violates_spacing
 from .greedy import greedy_cover, prune_cover
 from .lagrange import lagrangian_cover
 from .localsearch import cover_local_search
-from .reduce import components, reduce_lscp
+from .reduce import components, members, reduce_lscp
 from .solver import solve_mip
 
 logger = logging.getLogger(__name__)
@@ -143,13 +143,11 @@ def _mip_cover(
     A = mat.astype(np.float64)
     sense = [b"G"] * n
     rhs = [1.0] * n
-    if conflicts is not None and conflicts.nnz:
-        cu = sp.triu(conflicts, k=1).tocoo()
-        k = len(cu.row)
-        P = sp.csr_matrix((np.ones(2 * k), (np.repeat(np.arange(k), 2), np.stack([cu.row, cu.col], 1).ravel())), shape=(k, m))
+    P = spacing_rows(conflicts, m)
+    if P.shape[0]:
         A = sp.vstack([A, P], format="csr")
-        sense += [b"L"] * k
-        rhs += [1.0] * k
+        sense += [b"L"] * P.shape[0]
+        rhs += [1.0] * P.shape[0]
     start = None
     if best is not None:
         start = np.zeros(m)
@@ -163,6 +161,8 @@ def _mip_cover(
     # a solver bound above a known cover is not a bound (e.g. reported before the root LP): ignore it
     if best is not None and mip_bound > best_obj + 1e-6 * max(1.0, abs(best_obj)):
         mip_bound = -math.inf
+    if res.status == "optimal":
+        mip_bound = max(mip_bound, gap_widened(res.objective, rel_gap, maximize=False))
     if res.status in ("optimal", "feasible"):
         mip_bound = min(mip_bound, res.objective)  # CBC reports the bound of the tree; never above the incumbent
     if res.x is not None:
@@ -175,15 +175,13 @@ def _mip_cover(
                 best, best_obj = chosen, obj
         else:  # pragma: no cover - a solver answer that does not cover is discarded
             log.append("solver plan does not cover every row; ignored")
-    if res.status == "optimal":
-        bound = max(bound, best_obj) if best is not None else bound
-    else:
-        bound = max(bound, mip_bound)
-    bound = _ceil_bound(bound, ints)
+    # "optimal" from the solver means within rel_gap: its objective is not a bound, the widened one is
+    bound = _ceil_bound(max(bound, mip_bound), ints)
     if best is None:
         return None, math.nan, bound, "heuristic"
     gap = (best_obj - bound) / max(abs(best_obj), 1e-9)
-    if best_obj <= bound + 1e-9 or gap <= rel_gap:
+    solver_optimal = res.status == "optimal" and best_obj <= res.objective + 1e-9 * max(1.0, abs(res.objective))
+    if best_obj <= bound + 1e-9 or gap <= rel_gap or solver_optimal:
         return best, best_obj, bound, "optimal"
     return best, best_obj, bound, "feasible" if math.isfinite(bound) else "heuristic"
 
@@ -237,16 +235,12 @@ def cover_all(
     >>> p.sites.tolist(), p.objective, p.status.value
     ([1, 2], 2.0, 'optimal')
     """
-    reach = check_reach(reach)
-    check_common(time_limit, rel_gap, threads, seed, solver)
-    solver = str(solver).lower()
-    clock = Clock(time_limit)
-    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
+    reach, solver, clock, common = start_call(reach, time_limit=time_limit, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, reduce=reduce)
     n, m = reach.shape
     prep = prepare(reach)
     cost = prep.cost if use_cost else np.ones(m)
     kept = np.flatnonzero(prep.kept)
-    params: dict[str, Any] = {"use_cost": bool(use_cost), "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
+    params: dict[str, Any] = {"use_cost": bool(use_cost), **common}
     log: list[str] = []
 
     def plan(sites: np.ndarray, obj: float, bound: float, status: SolveStatus) -> Plan:
@@ -287,14 +281,10 @@ def cover_all(
     if ncomp:
         # process components in order; each gets time in proportion to its size
         sizes = np.bincount(row_lab, weights=np.diff(mat.indptr), minlength=ncomp) + 1.0
-        rows_by = np.argsort(row_lab, kind="stable")
-        row_starts = np.searchsorted(row_lab[rows_by], np.arange(ncomp + 1))
-        cols_by = np.argsort(col_lab, kind="stable")
-        col_starts = np.searchsorted(col_lab[cols_by], np.arange(ncomp + 1))
+        row_sets, col_sets = members(row_lab, ncomp), members(col_lab, ncomp)
         remaining = float(sizes.sum())
         for c in range(ncomp):
-            rows = rows_by[row_starts[c] : row_starts[c + 1]]
-            cols = cols_by[col_starts[c] : col_starts[c + 1]]
+            rows, cols = row_sets[c], col_sets[c]
             if len(rows) == 0:
                 remaining -= sizes[c]
                 continue
@@ -324,7 +314,8 @@ def cover_all(
     obj = float(cost[sites].sum())
     if all(s == "optimal" for s in statuses):
         status = SolveStatus.OPTIMAL
-        total_bound = obj if total_bound >= obj - 1e-6 * max(1.0, obj) or (obj - total_bound) / max(obj, 1e-9) <= rel_gap else total_bound
+        # components optimal within rel_gap prove only the summed bound; snap rounding noise, not the gap
+        total_bound = obj if total_bound >= obj - 1e-6 * max(1.0, obj) else total_bound
     elif any(s == "heuristic" for s in statuses) and not math.isfinite(total_bound):
         status = SolveStatus.HEURISTIC
     else:

@@ -40,6 +40,7 @@ __all__ = [
     "reduce_lscp",
     "LscpCore",
     "components",
+    "members",
 ]
 
 _MASK_SEED = 20260101
@@ -533,3 +534,15 @@ def components(mat: sp.csr_matrix, conflicts: sp.csr_matrix | None = None) -> tu
     rank[order] = np.arange(len(order))
     label = rank[label]
     return int(count), label[:n], label[n:]
+
+
+def members(labels: np.ndarray, count: int) -> list[np.ndarray]:
+    """Indices carrying each label ``0..count-1``, in index order (one sort, not one scan per label).
+
+    >>> [m.tolist() for m in members(np.array([1, 0, 1, 2]), 3)]
+    [[1], [0, 2], [3]]
+    """
+    labels = np.asarray(labels)
+    order = np.argsort(labels, kind="stable")
+    starts = np.searchsorted(labels[order], np.arange(count + 1))
+    return [order[starts[c] : starts[c + 1]] for c in range(count)]

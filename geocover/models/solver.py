@@ -286,7 +286,7 @@ def solve_mip(
     """
     solver = _check_solver(solver)
     if solver == "highs":
-        _new_model("highs", maximize)  # raises SolverError if HiGHS does not load
+        require_highs()  # SolverError with the fix if HiGHS does not load (checked once, not a model per solve)
     n_var = len(c)
     lb = np.zeros(n_var) if lb is None else np.asarray(lb, dtype=np.float64)
     ub = np.ones(n_var) if ub is None else np.asarray(ub, dtype=np.float64)

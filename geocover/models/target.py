@@ -11,7 +11,7 @@ import scipy.sparse as sp
 
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
-from ._common import Clock, check_common, check_reach, integral, kept_conflict, make_plan, violates_spacing
+from ._common import gap_widened, integral, kept_conflict, make_plan, spacing_rows, start_call, violates_spacing
 from .greedy import covered_weight
 from .mclp import build_most_core
 from .solver import solve_mip
@@ -95,17 +95,13 @@ def cover_target(
     >>> cover_target(r, 0.9).sites.tolist()
     [0]
     """
-    reach = check_reach(reach)
-    check_common(time_limit, rel_gap, threads, seed, solver)
-    solver = str(solver).lower()
+    reach, solver, clock, common = start_call(reach, time_limit=time_limit, rel_gap=rel_gap, threads=threads, seed=seed, solver=solver, reduce=reduce)
     if isinstance(share, bool) or not isinstance(share, (int, float, np.floating)) or not (0 < float(share) <= 1):
         raise ParameterError(f"share: must be a fraction in (0, 1] of the coverable people, got {share!r} (write 95 % as 0.95)", param="share")
     share = float(share)
-    clock = Clock(time_limit)
-    clock.reserve(min(0.1 * time_limit, 0.2 + 3e-8 * reach.matrix.nnz))
     m = reach.shape[1]
     cost_all = np.asarray(reach.cost, dtype=np.float64) if use_cost else np.ones(m)
-    params: dict[str, Any] = {"share": share, "use_cost": bool(use_cost), "time_limit": time_limit, "rel_gap": rel_gap, "threads": threads, "seed": seed, "reduce": bool(reduce)}
+    params: dict[str, Any] = {"share": share, "use_cost": bool(use_cost), **common}
     log: list[str] = []
 
     def plan(sites: np.ndarray, obj: float, bound: float, status: SolveStatus) -> Plan:
@@ -145,12 +141,9 @@ def cover_target(
     blocks = [A, sp.csr_matrix(np.concatenate([np.zeros(mc), w])[None, :])]
     sense = [b"G"] * n + [b"G"]
     rhs = [0.0] * n + [need_eff]
-    if core.conflicts is not None and core.conflicts.nnz:
-        cu = sp.triu(core.conflicts, k=1).tocoo()
-        k = len(cu.row)
-        blocks.append(sp.csr_matrix((np.ones(2 * k), (np.repeat(np.arange(k), 2), np.stack([cu.row, cu.col], 1).ravel())), shape=(k, mc + n)))
-        sense += [b"L"] * k
-        rhs += [1.0] * k
+    blocks.append(spacing_rows(core.conflicts, mc + n))
+    sense += [b"L"] * blocks[-1].shape[0]
+    rhs += [1.0] * blocks[-1].shape[0]
     M = sp.vstack(blocks, format="csr")
     start = None
     if best is not None:
@@ -175,7 +168,8 @@ def cover_target(
     if math.isfinite(res.bound) and res.bound <= best_obj + 1e-6 * max(1.0, abs(best_obj)):
         lower = max(lower, res.bound)
     if res.status == "optimal":
-        lower = max(lower, min(best_obj, res.objective))
+        lower = max(lower, gap_widened(min(best_obj, res.objective), rel_gap, maximize=False))
+    solver_optimal = res.status == "optimal" and best_obj <= res.objective + 1e-9 * max(1.0, abs(res.objective))
     if integral(cost) and math.isfinite(lower):
         lower = math.ceil(lower - 1e-6)
     sites = np.union1d(core.fixed, core.columns[best])
@@ -186,6 +180,6 @@ def cover_target(
         raise AssertionError("cover_target: plan violates the spacing rule")
     obj = float(cost_all[sites].sum())
     bound = min(obj, fixed_cost + lower)
-    if obj - bound <= 1e-9 * max(obj, 1.0) or (obj - bound) / max(obj, 1e-9) <= rel_gap:
+    if obj - bound <= 1e-9 * max(obj, 1.0) or (obj - bound) / max(obj, 1e-9) <= rel_gap or solver_optimal:
         return plan(sites, obj, obj if obj - bound <= 1e-9 * max(obj, 1.0) else bound, SolveStatus.OPTIMAL)
     return plan(sites, obj, bound, SolveStatus.FEASIBLE if math.isfinite(res.bound) else SolveStatus.HEURISTIC)
