@@ -1,10 +1,12 @@
-"""solver = "highs": HiGHS through python-mip (from the highsbox package) gives the same optima as CBC."""
+"""solver = "highs": HiGHS through python-mip (from the highsbox package) gives the same optima as CBC.
+
+The error for a missing HiGHS is tested in test_models.py.
+"""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
-import scipy.sparse as sp
 
 import geocover as gc
 from geocover.models.solver import highs_available
@@ -48,22 +50,3 @@ def test_highs_reaches_the_published_optimum_of_orlib_4_1():
     plan = gc.cover_all(gc.Reach.from_sparse(mat, cost=cost), solver="highs", reduce=False, time_limit=60)
     assert plan.solver == "highs"
     assert plan.status.value == "optimal" and plan.objective == 429
-
-
-def test_missing_highs_is_a_clear_error(monkeypatch):
-    import mip
-
-    from geocover.errors import SolverError
-    from geocover.models import solver as solver_mod
-
-    real = mip.Model
-
-    def no_highs(*args, **kwargs):
-        if str(kwargs.get("solver_name", "")).upper() == "HIGHS":
-            raise FileNotFoundError("libhighs.so: cannot open shared object file")
-        return real(*args, **kwargs)
-
-    monkeypatch.setattr(mip, "Model", no_highs)
-    monkeypatch.setattr(solver_mod, "highs_available", lambda: False, raising=False)
-    with pytest.raises(SolverError, match="highsbox"):
-        gc.cover_all(gc.Reach.from_sparse(sp.csr_matrix(np.eye(3))), solver="highs")
