@@ -15,7 +15,6 @@ import numpy as np
 import pandas as pd
 import pytest
 import rasterio
-import shapely
 from rasterio.transform import from_origin
 from shapely import affinity
 from shapely.geometry import Point, box

@@ -133,7 +133,6 @@ def test_adding_an_exclusion_zone_never_adds_a_kept_site(seed, parcels, zones, e
 @given(seed=st.integers(0, 10_000), parcels=st.booleans(), zones=st.lists(zone_st, min_size=1, max_size=4))
 def test_kept_footprints_clear_every_zone_by_its_setback(seed, parcels, zones):
     """Independent re-check with shapely's distance on the raw geometries, for random zones and setbacks."""
-    import shapely
 
     rng = np.random.default_rng(seed)
     xy = rng.uniform(0, 1000, size=(60, 2)) + [X0, Y0]
