@@ -492,11 +492,15 @@ class Plan:
 
     @property
     def gap(self) -> float:
-        """Relative gap between objective and bound (0 when proven optimal)."""
-        if self.status in (SolveStatus.OPTIMAL, SolveStatus.EMPTY):
+        """Relative gap between objective and bound.
+
+        0 for an exact optimum; an OPTIMAL plan solved to a relative gap
+        tolerance shows the small gap its bound really proves.
+        """
+        if self.status == SolveStatus.EMPTY:
             return 0.0
         if not (np.isfinite(self.bound) and np.isfinite(self.objective)):
-            return float("inf")
+            return 0.0 if self.status == SolveStatus.OPTIMAL else float("inf")
         return abs(self.objective - self.bound) / max(abs(self.objective), 1e-9)
 
     @property
