@@ -370,6 +370,9 @@ def demand_from_grid(
         if same_crs and factor == 1:
             const_fp = half_diagonal(transform, 1)
 
+        # the common case (float cells, no mask, no scaling, clipping or coarsening) has a one-pass-per-test path
+        plain = const_fp is not None and not need_f64 and not use_mask and is_float
+
         out = PointBuffer(0)
         sized = False
         people_in = 0.0
@@ -408,6 +411,22 @@ def demand_from_grid(
                 raw, mask = pending.result()  # type: ignore[union-attr]
                 pending = pool.submit(fetch, j + 1) if j + 1 < len(starts) else None
                 h = raw.shape[0]
+                scan = _scan_plain_window(raw, nodata) if plain else None
+                if scan is not None:
+                    flat, weight, n_nod, people = scan
+                    cells_nodata += n_nod
+                    if cells_bad and bad_values is BadValues.ERROR:
+                        continue  # keep counting the bad cells for the error message
+                    people_in += people
+                    made = len(flat)
+                    if not sized:
+                        out.reserve(_capacity_guess(made, h, height, width, factor))
+                        sized = True
+                    if made:
+                        out.reserve(made, _expected_points(out.n + made, row_off + h, height))
+                        out.add_sorted_cells(flat, row_off * width, weight, transform, width, const_fp)
+                    del flat, weight, scan
+                    continue
                 nod = None
                 if mask is not None:
                     nod = mask == 0
@@ -521,6 +540,36 @@ def demand_from_grid(
         clip_mode=clip_mode.value if clip_geom is not None else None,
         window_rows=min(wrows, height),
     )
+
+
+def _scan_plain_window(raw: np.ndarray, nodata: Any) -> tuple[np.ndarray, np.ndarray, int, float] | None:
+    """``(flat, weight, nodata cells, people)`` of a clean float window, or None when it is not clean.
+
+    A window is clean when every cell is people (> 0), zero or nodata and the
+    people sum to a finite number.  That is told by counting, in one pass per
+    test and without changing ``raw`` (masked writes and reductions cost
+    several passes each); anything else (negative, NaN or infinite counts) is
+    left to the general path, which reports or zeroes it.
+    """
+    pos = raw > 0
+    n_nod = 0
+    if nodata is not None:
+        nod = np.isnan(raw) if math.isnan(nodata) else raw == nodata
+        n_nod = int(np.count_nonzero(nod))
+        if n_nod and nodata > 0:  # a positive nodata value holds nobody
+            pos &= ~nod
+        del nod
+    # with nodata 0 the zero cells are the nodata cells, already counted
+    n_zero = 0 if (nodata is not None and nodata == 0) else int(np.count_nonzero(raw == 0))
+    flat = np.flatnonzero(pos)
+    del pos
+    if raw.size - len(flat) - n_zero - n_nod != 0:  # negative or NaN cells (other than nodata)
+        return None
+    weight = raw.reshape(-1)[flat]
+    people = float(weight.sum(dtype=np.float64))
+    if not math.isfinite(people):  # an infinite count, or a sum past the largest float
+        return None
+    return flat, weight, n_nod, people
 
 
 def _window_box(wt: Any, h: int, w: int) -> tuple[float, float, float, float]:
