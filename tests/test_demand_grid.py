@@ -457,3 +457,34 @@ def test_projected_grid_into_another_working_crs(tmp_path):
     # Web Mercator stretches distances by about 1 / cos(latitude ~36 deg) here, and the footprint follows
     assert (d.footprint > 50 * math.sqrt(2) * 1.2).all() and (d.footprint < 50 * math.sqrt(2) * 1.3).all()
     assert any("reprojected" in n for n in d.summary["notes"])
+
+
+@pytest.mark.parametrize("nodata", [-1.0, 0.0, float("nan"), 3.0e38, None])
+@pytest.mark.parametrize("bad", [None, -2.0, float("nan"), float("inf")])
+def test_clean_and_unclean_windows_give_the_cells_themselves(tmp_path, nodata, bad):
+    # float windows are judged clean by counting (fast path) or not (general path); with window_rows=3 a
+    # grid mixes both.  Expected values straight from the array: one point per cell holding people.
+    rng = np.random.default_rng(7)
+    data = rng.gamma(0.6, 25.0, size=(10, 7)).astype(np.float32)
+    data[rng.random(data.shape) < 0.4] = 0.0
+    if nodata is not None:
+        data[rng.random(data.shape) < 0.15] = nodata
+    if bad is not None:
+        data[7, 2] = bad  # only the window of rows 6-8 holds it
+    path = write_raster(tmp_path / "pop.tif", data, nodata=nodata)
+    d = demand_from_grid(path, bad_values="zero", window_rows=3)
+    is_nod = np.zeros(data.shape, bool) if nodata is None else (np.isnan(data) if math.isnan(nodata) else data == nodata)
+    people = (data > 0) & np.isfinite(data) & ~is_nod
+    rows, cols = np.nonzero(people)
+    assert d.unit.tolist() == (rows * 7 + cols).tolist()
+    assert d.weight.tolist() == data[people].astype(np.float64).tolist()
+    x, y = apply_affine(UTM, cols + 0.5, rows + 0.5)
+    assert np.array_equal(d.xy, np.column_stack([x, y]))
+    assert d.summary["dropped"].get("nodata", {"cells": 0})["cells"] == int(is_nod.sum())
+    n_bad = int((~is_nod & ~(np.isfinite(data) & (data >= 0))).sum())  # a NaN is nodata when nodata is NaN
+    assert n_bad == (0 if bad is None or (math.isnan(bad) and nodata is not None and math.isnan(nodata)) else 1)
+    assert d.summary["dropped"].get("bad_values", {"cells": 0})["cells"] == n_bad
+    conserved(d)
+    if n_bad:
+        with pytest.raises(InputError, match="row 7, column 2"):
+            demand_from_grid(path, window_rows=3)
