@@ -522,7 +522,10 @@ def demand_from_grid(
         if cells_bad:
             notes.append(f"counted {cells_bad} negative or non-finite cell(s) as zero (bad_values='zero')")
 
+    uniform = out.uniform_footprint
     xy, weight, unit, footprint = out.finish()
+    if uniform is not None:  # one footprint for every cell: Demand keeps it as a broadcast, not 8 bytes a point
+        footprint = np.float64(uniform)
     dropped: dict[str, dict[str, Any]] = {}
     if cells_nodata:
         dropped["nodata"] = {"cells": cells_nodata, "people": 0.0}

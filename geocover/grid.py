@@ -284,6 +284,8 @@ class PointBuffer:
         self.weight = np.empty(capacity, dtype=np.float64)
         self.unit = np.empty(capacity, dtype=np.int64)
         self.footprint = np.empty(capacity, dtype=np.float64)
+        # while every point added has the same footprint it is kept here, not written per point
+        self.uniform_footprint: float | None = None
 
     @property
     def capacity(self) -> int:
@@ -312,7 +314,7 @@ class PointBuffer:
         np.add(flat, offset, out=unit, casting="unsafe")
         cell_centres(unit, transform, grid_width, out=self.xy[lo:hi])
         self.weight[lo:hi] = weight
-        self.footprint[lo:hi] = footprint
+        self._set_footprint(lo, hi, footprint)
         self.n = hi
         del unit
 
@@ -355,7 +357,7 @@ class PointBuffer:
         self.xy[lo:hi, 0] = x_col[cols]
         del cols
         self.weight[lo:hi] = weight
-        self.footprint[lo:hi] = footprint
+        self._set_footprint(lo, hi, footprint)
         self.n = hi
 
     def add_points(self, x: np.ndarray, y: np.ndarray, weight: np.ndarray, unit: np.ndarray, footprint: Any) -> None:
@@ -367,16 +369,39 @@ class PointBuffer:
         self.xy[lo:hi, 1] = y
         self.weight[lo:hi] = weight
         self.unit[lo:hi] = unit
-        self.footprint[lo:hi] = footprint
+        self._set_footprint(lo, hi, footprint)
         self.n = hi
 
+    def _set_footprint(self, lo: int, hi: int, footprint: Any) -> None:
+        if np.ndim(footprint) == 0:
+            value = float(footprint)
+            if lo == 0:
+                self.uniform_footprint = value
+                return
+            if self.uniform_footprint is not None and (value == self.uniform_footprint):
+                return
+        if self.uniform_footprint is not None:  # no longer one value for all: write the earlier points' value
+            self.footprint[:lo] = self.uniform_footprint
+            self.uniform_footprint = None
+        self.footprint[lo:hi] = footprint
+
     def finish(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """The arrays trimmed to the points added (the buffer is not usable afterwards)."""
+        """The arrays trimmed to the points added (the buffer is not usable afterwards).
+
+        When every point got the same footprint, the footprint is a read-only
+        broadcast of that value (no memory per point); ``uniform_footprint``
+        then holds it.
+        """
         n = self.n
         self.xy.resize((n, 2), refcheck=False)
-        for arr in (self.weight, self.unit, self.footprint):
+        for arr in (self.weight, self.unit):
             arr.resize(n, refcheck=False)
-        out = (self.xy, self.weight, self.unit, self.footprint)
+        if self.uniform_footprint is not None:
+            footprint = np.broadcast_to(np.float64(self.uniform_footprint), (n,))
+        else:
+            self.footprint.resize(n, refcheck=False)
+            footprint = self.footprint
+        out = (self.xy, self.weight, self.unit, footprint)
         del self.xy, self.weight, self.unit, self.footprint
         return out
 

@@ -14,6 +14,7 @@ relation; ``Plan`` is what a model returns.  All of them check themselves in
 from __future__ import annotations
 
 import enum
+import math
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
@@ -40,15 +41,18 @@ def _as_xy(xy: Any, what: str) -> np.ndarray:
     arr = np.ascontiguousarray(np.asarray(xy, dtype=np.float64))
     if arr.ndim != 2 or arr.shape[1] != 2:
         raise InputError(f"{what}: coordinates must have shape (n, 2), got {arr.shape}")
-    if arr.size and not np.isfinite(arr).all():
+    # a finite sum proves every value finite in one pass without a temporary; only otherwise look closer
+    if arr.size and not math.isfinite(arr.sum()) and not np.isfinite(arr).all():
         bad = int(np.flatnonzero(~np.isfinite(arr).all(axis=1))[0])
         raise InputError(f"{what}: coordinate row {bad} is not finite ({arr[bad].tolist()}); drop or fix that feature")
     return arr
 
 
-def _as_vector(values: Any, n: int, dtype: Any, what: str, default: Any) -> np.ndarray:
+def _as_vector(values: Any, n: int, dtype: Any, what: str, default: Any, broadcast: bool = False) -> np.ndarray:
     if values is None:
         return np.full(n, default, dtype=dtype)
+    if broadcast and np.ndim(values) == 0:  # one value for all as a read-only view: no memory per element
+        return np.broadcast_to(np.asarray(values, dtype=dtype), (n,))
     arr = np.ascontiguousarray(np.asarray(values, dtype=dtype))
     if arr.ndim == 0:
         arr = np.full(n, arr.item(), dtype=dtype)
@@ -97,7 +101,10 @@ class Demand:
         xy = _as_xy(self.xy, "demand")
         n = len(xy)
         weight = _as_vector(self.weight, n, np.float64, "demand weight", 1.0)
-        if n and (not np.isfinite(weight).all() or (weight < 0).any()):
+        # min >= 0 (NaN propagates) and a finite sum prove the weights clean without temporaries
+        if n and not (weight.min() >= 0 and math.isfinite(weight.sum())) and (
+            not np.isfinite(weight).all() or (weight < 0).any()
+        ):
             bad = np.flatnonzero(~np.isfinite(weight) | (weight < 0))
             raise InputError(
                 f"demand weight: {len(bad)} value(s) are negative or not finite (first at row {int(bad[0])}: "
@@ -106,7 +113,7 @@ class Demand:
         unit = _as_vector(self.unit, n, np.int64, "demand unit", 0)
         if self.unit is None:
             unit = np.arange(n, dtype=np.int64)
-        footprint = _as_vector(self.footprint, n, np.float64, "demand footprint", 0.0)
+        footprint = _as_vector(self.footprint, n, np.float64, "demand footprint", 0.0, broadcast=True)
         for name, arr in (("xy", xy), ("weight", weight), ("unit", unit), ("footprint", footprint)):
             object.__setattr__(self, name, _freeze(arr))
         object.__setattr__(self, "summary", dict(self.summary))
