@@ -275,6 +275,16 @@ class PointBuffer:
     >>> xy, w, u, fp = buf.finish()
     >>> xy.tolist(), w.tolist(), u.tolist(), fp.tolist()
     ([[1.0, 3.0], [2.0, 4.0]], [5.0, 6.0], [7, 8], [0.5, 0.5])
+
+    One footprint for all is kept as one value until a point differs:
+
+    >>> buf = PointBuffer(4)
+    >>> buf.add_points(np.zeros(2), np.zeros(2), np.ones(2), np.arange(2), 0.5)
+    >>> buf.uniform_footprint
+    0.5
+    >>> buf.add_points(np.zeros(2), np.zeros(2), np.ones(2), np.arange(2), np.array([1.0, 2.0]))
+    >>> buf.uniform_footprint is None, buf.finish()[3].tolist()
+    (True, [0.5, 0.5, 1.0, 2.0])
     """
 
     def __init__(self, capacity: int = 1024) -> None:
