@@ -53,9 +53,10 @@ def _as_vector(values: Any, n: int, dtype: Any, what: str, default: Any, broadca
         return np.full(n, default, dtype=dtype)
     if broadcast and np.ndim(values) == 0:  # one value for all as a read-only view: no memory per element
         return np.broadcast_to(np.asarray(values, dtype=dtype), (n,))
-    arr = np.ascontiguousarray(np.asarray(values, dtype=dtype))
-    if arr.ndim == 0:
-        arr = np.full(n, arr.item(), dtype=dtype)
+    arr = np.asarray(values, dtype=dtype)
+    if arr.ndim == 0:  # one value for every element (np.ascontiguousarray would make it shape (1,))
+        return np.full(n, arr.item(), dtype=dtype)
+    arr = np.ascontiguousarray(arr)
     if arr.shape != (n,):
         raise InputError(f"{what}: expected {n} values, got shape {arr.shape}")
     return arr

@@ -191,3 +191,13 @@ def test_kdtree_and_brute_force_agree_on_the_fixture(case):
     tree = cKDTree(sites.xy)
     hits = tree.query_ball_point(demand.xy, 800.0)
     assert sum(len(h) for h in hits) == reach.matrix.nnz
+
+
+def test_value_types_take_one_value_for_all():
+    # a scalar weight, cost or footprint applies to every point or site
+    d = Demand(np.zeros((3, 2)), 2.0, footprint=50.0, crs=CRS)
+    assert d.weight.tolist() == [2.0, 2.0, 2.0] and d.footprint.tolist() == [50.0] * 3
+    s = Sites(np.zeros((2, 2)), cost=4.0, crs=CRS)
+    assert s.cost.tolist() == [4.0, 4.0]
+    with pytest.raises(ValueError, match="expected 3 values"):
+        Demand(np.zeros((3, 2)), [1.0, 2.0])
