@@ -552,6 +552,13 @@ def _runs(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return edges[0::2], edges[1::2]
 
 
+def _grown(a: np.ndarray, cap: int, fill: int) -> np.ndarray:
+    """A buffer of ``cap`` entries holding the first ``fill`` entries of ``a``."""
+    out = np.empty(cap, dtype=a.dtype)
+    out[:fill] = a[:fill]
+    return out
+
+
 def _network_pairs(
     net: RoadNetwork,
     dsnap: Snap,
@@ -600,7 +607,13 @@ def _network_pairs(
     graph = _source_graph(net, ssnap, s_idx)
     budget = limit - s_off[s_idx]  # time left on the network for each site
     count = np.zeros(m, dtype=np.int64)
-    rows_out, vals_out = [], []
+    # the CSC is written straight into buffers that grow to the size the sites so far predict
+    # (touching fresh memory is slow, so no per-site pieces and no final concatenation)
+    most = len(d_idx) * len(s_idx)
+    cap = min(most, 1 << 20)
+    rows = np.empty(cap, dtype=row_dtype)
+    vals = np.empty(cap)
+    fill = 0
     for i, site in enumerate(s_idx.tolist()):
         bud = float(budget[i])
         t = dijkstra(graph, directed=True, indices=n_nodes + i, limit=bud)[:n_nodes]
@@ -620,15 +633,18 @@ def _network_pairs(
             via_v -= np.where(dv_s[j] == start, pv_s[j], 0.0)
         total = np.minimum(via_u, via_v)
         total += s_off[site]
-        ok = total <= limit
-        rows_out.append(rows_s[j[ok]])
-        vals_out.append(total[ok])
-        count[site] = len(rows_out[-1])
+        ok = np.flatnonzero(total <= limit)
+        c = len(ok)
+        if fill + c > cap:
+            cap = min(most, max(2 * cap, int(1.1 * (fill + c) / (i + 1) * len(s_idx))))
+            rows, vals = _grown(rows, cap, fill), _grown(vals, cap, fill)
+        np.take(rows_s, j[ok], out=rows[fill : fill + c])
+        np.take(total, ok, out=vals[fill : fill + c])
+        fill += c
+        count[site] = c
     colptr = np.zeros(m + 1, dtype=np.int64)
     np.cumsum(count, out=colptr[1:])
-    rows = np.concatenate(rows_out) if rows_out else np.zeros(0, row_dtype)
-    vals = np.concatenate(vals_out) if vals_out else np.zeros(0)
-    del rows_out, vals_out
+    rows, vals = rows[:fill], vals[:fill]
     # direct legs: demand on the site's own segment
     dseg = dsnap.segment[d_idx]
     seg_order = np.argsort(dseg, kind="stable")
