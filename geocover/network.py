@@ -465,14 +465,19 @@ def build_network(
 
 def _min_csr(tail: np.ndarray, head: np.ndarray, weight: np.ndarray, n: int) -> sp.csr_matrix:
     """CSR adjacency keeping the smallest weight of parallel edges (and explicit zeros)."""
+    return sp.csr_matrix(_min_rows(tail, head, weight, n)[::-1], shape=(n, n))
+
+
+def _min_rows(tail: np.ndarray, head: np.ndarray, weight: np.ndarray, rows: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``(indptr, indices, data)`` of ``rows`` CSR rows, keeping the smallest weight of parallel edges."""
     order = np.lexsort((weight, head, tail))
     tail, head, weight = tail[order], head[order], weight[order]
     first = np.ones(len(tail), dtype=bool)
     first[1:] = (tail[1:] != tail[:-1]) | (head[1:] != head[:-1])
     tail, head, weight = tail[first], head[first], weight[first]
-    indptr = np.zeros(n + 1, dtype=np.int64)
-    np.cumsum(np.bincount(tail, minlength=n), out=indptr[1:])
-    return sp.csr_matrix((weight, head, indptr), shape=(n, n))
+    indptr = np.zeros(rows + 1, dtype=np.int64)
+    np.cumsum(np.bincount(tail, minlength=rows), out=indptr[1:])
+    return indptr, head, weight
 
 
 # --------------------------------------------------------------------------- travel times
@@ -515,7 +520,6 @@ def _source_graph(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> sp.csr_matri
     src = n + np.arange(k)
     to_u = net.backward[seg] | (t == 0.0)  # leaving the site towards u means driving v -> u (or standing on u)
     to_v = net.forward[seg] | (t == 1.0)
-    g = net.graph.tocoo()
     # out-edges of the nodes the sites stand on, re-tailed at the site's source, penalty taken off
     node = _at_node(net, snap, idx)
     on = np.flatnonzero(node >= 0)
@@ -526,10 +530,14 @@ def _source_graph(net: RoadNetwork, snap: Snap, idx: np.ndarray) -> sp.csr_matri
     out_tail = np.repeat(src[on], cnt)
     out_head = net.graph.indices[pos]
     out_w = net.graph.data[pos] - np.repeat(net.penalty(node[on]), cnt)
-    tail = np.concatenate([g.row, src[to_u], src[to_v], out_tail])
-    head = np.concatenate([g.col, net.seg_u[seg][to_u], net.seg_v[seg][to_v], out_head])
-    weight = np.concatenate([g.data, (t * full)[to_u], ((1.0 - t) * full)[to_v], out_w])
-    return _min_csr(tail.astype(np.int64), head.astype(np.int64), weight, n + k)
+    # the road graph's rows stay as they are; only the k source rows are built (and deduplicated)
+    tail = np.concatenate([np.flatnonzero(to_u), np.flatnonzero(to_v), out_tail - n])
+    head = np.concatenate([net.seg_u[seg][to_u], net.seg_v[seg][to_v], out_head])
+    weight = np.concatenate([(t * full)[to_u], ((1.0 - t) * full)[to_v], out_w])
+    s_ptr, s_head, s_weight = _min_rows(tail.astype(np.int64), head.astype(np.int64), weight, k)
+    g = net.graph
+    indptr = np.concatenate([g.indptr.astype(np.int64), g.indptr[-1] + s_ptr[1:]])
+    return sp.csr_matrix((np.concatenate([g.data, s_weight]), np.concatenate([g.indices, s_head]), indptr), shape=(n + k, n + k))
 
 
 def _spans(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
