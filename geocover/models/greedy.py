@@ -32,8 +32,16 @@ def covered_weight(mat: sp.csr_matrix, weight: np.ndarray, chosen: np.ndarray) -
     return float(np.asarray(weight)[hit].sum())
 
 
-def greedy_cover(mat: sp.csr_matrix, cost: np.ndarray, *, allowed: np.ndarray | None = None, conflicts: sp.csr_matrix | None = None) -> np.ndarray | None:
-    """Chvatal's greedy set cover of every row; None if some row cannot be covered.
+def greedy_cover(
+    mat: sp.csr_matrix,
+    cost: np.ndarray,
+    *,
+    allowed: np.ndarray | None = None,
+    conflicts: sp.csr_matrix | None = None,
+    weight: np.ndarray | None = None,
+    need: float | None = None,
+) -> np.ndarray | None:
+    """Chvatal's greedy set cover of every row (or of ``need`` weight); None if it cannot be reached.
 
     Parameters
     ----------
@@ -43,19 +51,28 @@ def greedy_cover(mat: sp.csr_matrix, cost: np.ndarray, *, allowed: np.ndarray | 
         Columns that may be opened.
     conflicts : csr_matrix (m x m), optional
         Opening column j forbids every column k with ``conflicts[j, k] != 0``.
+    weight : (n,) array, optional
+        Row weights; columns are scored by uncovered weight per unit cost.
+        Default 1 per row (Chvatal's rule).
+    need : float, optional
+        Stop once this much weight is covered (a coverage target).  Default:
+        every row.
     """
     n, m = mat.shape
     cost = np.asarray(cost, dtype=np.float64)
     csc = sp.csc_matrix(mat)
+    w = np.ones(n) if weight is None else np.asarray(weight, dtype=np.float64)
+    every_row = need is None
     uncovered = np.ones(n, dtype=bool)
-    count = np.diff(csc.indptr).astype(np.float64)  # uncovered rows per column
+    gain = np.asarray(csc.T @ w).ravel()  # uncovered weight per column
     ok = np.ones(m, dtype=bool) if allowed is None else np.asarray(allowed, dtype=bool).copy()
     chosen: list[int] = []
-    left = n
-    while left:
-        score = np.where(ok & (count > 0), count / np.maximum(cost, _EPS), -1.0)
+    got = 0.0
+    while uncovered.any() if every_row else got < float(need):
+        useful = ok & (gain > 1e-12)
+        score = np.where(useful, gain / np.maximum(cost, _EPS), -1.0)
         # zero-cost columns that cover something come first
-        score = np.where(ok & (count > 0) & (cost <= 0), np.inf, score)
+        score = np.where(useful & (cost <= 0), np.inf, score)
         j = int(np.argmax(score))
         if score[j] <= 0:
             return None
@@ -66,10 +83,10 @@ def greedy_cover(mat: sp.csr_matrix, cost: np.ndarray, *, allowed: np.ndarray | 
         rows = csc.indices[csc.indptr[j] : csc.indptr[j + 1]]
         rows = rows[uncovered[rows]]
         uncovered[rows] = False
-        left -= len(rows)
+        got += float(w[rows].sum())
         if len(rows):
             sub = mat[rows]
-            count -= np.bincount(sub.indices, minlength=m)
+            gain -= np.bincount(sub.indices, weights=np.repeat(w[rows], np.diff(sub.indptr)), minlength=m)
     return np.array(sorted(chosen), dtype=np.int64)
 
 

@@ -12,7 +12,7 @@ import scipy.sparse as sp
 from ..errors import ParameterError
 from ..values import Plan, Reach, SiteRole, SolveStatus
 from ._common import gap_widened, integral, kept_conflict, make_plan, spacing_rows, start_call, violates_spacing
-from .greedy import covered_weight
+from .greedy import covered_weight, greedy_cover
 from .mclp import build_most_core
 from .solver import solve_mip
 
@@ -23,32 +23,11 @@ __all__ = ["cover_target"]
 
 def _greedy_target(mat: sp.csr_matrix, w: np.ndarray, cost: np.ndarray, need: float, conflicts: sp.csr_matrix | None) -> np.ndarray | None:
     """Open sites by weight gained per unit cost until ``need`` is met, then drop the redundant ones."""
-    n, m = mat.shape
-    csc = sp.csc_matrix(mat)
-    gain = np.asarray(csc.T @ w).ravel()
-    uncovered = np.ones(n, dtype=bool)
-    ok = np.ones(m, dtype=bool)
-    chosen: list[int] = []
-    got = 0.0
-    while got < need:
-        score = np.where(ok & (gain > 1e-12), gain / np.maximum(cost, 1e-12), -1.0)
-        score = np.where(ok & (gain > 1e-12) & (cost <= 0), np.inf, score)
-        j = int(np.argmax(score))
-        if score[j] <= 0:
-            return None
-        chosen.append(j)
-        ok[j] = False
-        if conflicts is not None:
-            ok[conflicts.indices[conflicts.indptr[j] : conflicts.indptr[j + 1]]] = False
-        rows = csc.indices[csc.indptr[j] : csc.indptr[j + 1]]
-        rows = rows[uncovered[rows]]
-        uncovered[rows] = False
-        got += float(w[rows].sum())
-        if len(rows):
-            sub = mat[rows]
-            gain -= np.bincount(sub.indices, weights=np.repeat(w[rows], np.diff(sub.indptr)), minlength=m)
+    chosen = greedy_cover(mat, cost, conflicts=conflicts, weight=w, need=need)
+    if chosen is None:
+        return None
     # prune: most expensive first (ties: highest index), keep the target
-    sel = np.array(sorted(chosen), dtype=np.int64)
+    sel = chosen
     for j in sel[np.lexsort((-sel, -cost[sel]))]:
         trial = sel[sel != j]
         if covered_weight(mat, w, trial) >= need:
