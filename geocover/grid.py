@@ -22,6 +22,7 @@ to ``(x, y)``.
 from __future__ import annotations
 
 import math
+import threading
 from dataclasses import dataclass
 from typing import Any
 
@@ -279,6 +280,7 @@ def _hugepage_switch() -> Any:
 
 
 _SET_HUGEPAGE = _hugepage_switch()
+_HUGEPAGE_LOCK = threading.Lock()  # two threads switching at once could leave it off for good
 
 
 def empty_small_pages(shape: Any, dtype: Any) -> np.ndarray:
@@ -291,19 +293,20 @@ def empty_small_pages(shape: Any, dtype: Any) -> np.ndarray:
     reporting) the first touch of each huge page can cost milliseconds:
     measured on the development VM, a fresh process first-touching 840 MB
     took 0.2-1.9 s with huge pages and a steady 0.33 s with 4 KB pages.  The
-    switch is numpy's own (process-wide, set back at once); where it is
-    missing this is plain ``np.empty``.
+    switch is numpy's own (process-wide, set back at once, under a lock);
+    where it is missing this is plain ``np.empty``.
 
     >>> empty_small_pages((2, 3), np.float64).shape
     (2, 3)
     """
     if _SET_HUGEPAGE is None:
         return np.empty(shape, dtype=dtype)
-    before = _SET_HUGEPAGE(False)
-    try:
-        return np.empty(shape, dtype=dtype)
-    finally:
-        _SET_HUGEPAGE(before)
+    with _HUGEPAGE_LOCK:
+        before = _SET_HUGEPAGE(False)
+        try:
+            return np.empty(shape, dtype=dtype)
+        finally:
+            _SET_HUGEPAGE(before)
 
 
 class PointBuffer:

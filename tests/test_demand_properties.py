@@ -146,3 +146,18 @@ def test_staged_rows_are_the_masked_cells(h, w, row_off, chunk, rotated, seed):
     assert k == len(expected_units) and u.tolist() == expected_units.tolist()
     assert wt.tolist() == values[mask].astype(np.float64).tolist()
     assert np.array_equal(xy, cell_centres(expected_units, t, width))
+
+
+@pytest.mark.parametrize("state", [True, False])
+def test_small_page_arrays_leave_numpys_hugepage_switch_as_it_was(state):
+    import geocover.grid as grid
+
+    if grid._SET_HUGEPAGE is None:
+        pytest.skip("this numpy has no hugepage switch")
+    before = grid._SET_HUGEPAGE(state)
+    try:
+        arr = grid.empty_small_pages((1 << 20, 2), np.float64)  # 16 MB: numpy would advise huge pages
+        assert arr.shape == (1 << 20, 2) and arr.dtype == np.float64 and arr.flags.writeable
+        assert grid._SET_HUGEPAGE(state) is state  # what empty_small_pages left behind
+    finally:
+        grid._SET_HUGEPAGE(before)
