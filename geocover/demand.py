@@ -387,6 +387,7 @@ def demand_from_grid(
         # are reused: fresh memory is slow to touch, reused memory is not.
         starts = list(range(0, height, wrows))
         buffers: list[np.ndarray | None] = [None, None]
+        scratch: _PlainScratch | None = None  # the plain path's masks and staged weights, reused likewise
 
         def fetch(j: int) -> tuple[np.ndarray, np.ndarray | None]:
             row_off = starts[j]
@@ -411,22 +412,28 @@ def demand_from_grid(
                 raw, mask = pending.result()  # type: ignore[union-attr]
                 pending = pool.submit(fetch, j + 1) if j + 1 < len(starts) else None
                 h = raw.shape[0]
-                scan = _scan_plain_window(raw, nodata) if plain else None
+                scan = None
+                if plain and not (cells_bad and bad_values is BadValues.ERROR):
+                    # (once a bad cell is seen the general path only counts, the same way)
+                    if scratch is None:
+                        scratch = _PlainScratch(buffers[0].shape, raw.dtype)  # type: ignore[union-attr]
+                    scan = _scan_plain_window(raw, nodata, scratch, h)
                 if scan is not None:
-                    flat, weight, n_nod, people = scan
-                    cells_nodata += n_nod
-                    if cells_bad and bad_values is BadValues.ERROR:
-                        continue  # keep counting the bad cells for the error message
-                    people_in += people
-                    made = len(flat)
+                    made, n_nod = scan
                     if not sized:
                         out.reserve(_capacity_guess(made, h, height, width, factor))
                         sized = True
                     if made:
                         out.reserve(made, _expected_points(out.n + made, row_off + h, height))
-                        out.add_sorted_cells(flat, row_off * width, weight, transform, width, const_fp)
-                    del flat, weight, scan
-                    continue
+                        out.stage_rows(scratch.pos[:h], raw, row_off, transform, scratch.weight)  # type: ignore[union-attr]
+                    people = float(scratch.weight[:made].sum(dtype=np.float64))  # type: ignore[union-attr]
+                    if math.isfinite(people):
+                        if made:
+                            out.commit(made, scratch.weight, const_fp)  # type: ignore[union-attr]
+                        cells_nodata += n_nod
+                        people_in += people
+                        continue
+                    # an infinite count, or a sum past the largest float: the general path reports it
                 nod = None
                 if mask is not None:
                     nod = mask == 0
@@ -545,34 +552,53 @@ def demand_from_grid(
     )
 
 
-def _scan_plain_window(raw: np.ndarray, nodata: Any) -> tuple[np.ndarray, np.ndarray, int, float] | None:
-    """``(flat, weight, nodata cells, people)`` of a clean float window, or None when it is not clean.
+class _PlainScratch:
+    """Window-sized buffers of the plain path, made once per read and reused by every window.
 
-    A window is clean when every cell is people (> 0), zero or nodata and the
-    people sum to a finite number.  That is told by counting, in one pass per
-    test and without changing ``raw`` (masked writes and reductions cost
-    several passes each); anything else (negative, NaN or infinite counts) is
-    left to the general path, which reports or zeroes it.
+    ``pos`` (populated cells) and ``test`` are boolean masks; ``weight``
+    takes the populated cells' values, compacted.  Memory that is touched
+    again costs nothing; window-sized temporaries made afresh every window
+    are first-touched every window, which costs more than the tests.
     """
-    pos = raw > 0
+
+    def __init__(self, shape: tuple[int, int], dtype: Any) -> None:
+        self.pos = np.empty(shape, dtype=bool)
+        self.test = np.empty(shape, dtype=bool)
+        self.weight = np.empty(shape[0] * shape[1], dtype=dtype)  # only as much as is populated is ever touched
+
+
+def _scan_plain_window(raw: np.ndarray, nodata: Any, scratch: _PlainScratch, h: int) -> tuple[int, int] | None:
+    """``(populated cells, nodata cells)`` of a float window, or None when it holds other values.
+
+    ``scratch.pos[:h]`` is left holding the populated cells (> 0, not
+    nodata).  Every cell must be people (> 0), zero or nodata; that is told by
+    counting, one pass per test into reused masks, without changing ``raw``
+    (masked writes and reductions cost several passes each).  Anything else
+    (negative or NaN counts other than nodata) is left to the general path,
+    which reports or zeroes it; so is a window whose people do not sum to a
+    finite number, which the caller checks once it has the weights.
+    """
+    pos, test = scratch.pos[:h], scratch.test[:h]
+    np.greater(raw, 0, out=pos)
     n_nod = 0
     if nodata is not None:
-        nod = np.isnan(raw) if math.isnan(nodata) else raw == nodata
-        n_nod = int(np.count_nonzero(nod))
+        if math.isnan(nodata):
+            np.isnan(raw, out=test)
+        else:
+            np.equal(raw, nodata, out=test)
+        n_nod = int(np.count_nonzero(test))
         if n_nod and nodata > 0:  # a positive nodata value holds nobody
-            pos &= ~nod
-        del nod
+            np.logical_not(test, out=test)
+            np.logical_and(pos, test, out=pos)
     # with nodata 0 the zero cells are the nodata cells, already counted
-    n_zero = 0 if (nodata is not None and nodata == 0) else int(np.count_nonzero(raw == 0))
-    flat = np.flatnonzero(pos)
-    del pos
-    if raw.size - len(flat) - n_zero - n_nod != 0:  # negative or NaN cells (other than nodata)
+    n_zero = 0
+    if not (nodata is not None and nodata == 0):
+        np.equal(raw, 0, out=test)
+        n_zero = int(np.count_nonzero(test))
+    made = int(np.count_nonzero(pos))
+    if raw.size - made - n_zero - n_nod != 0:  # negative or NaN cells (other than nodata)
         return None
-    weight = raw.reshape(-1)[flat]
-    people = float(weight.sum(dtype=np.float64))
-    if not math.isfinite(people):  # an infinite count, or a sum past the largest float
-        return None
-    return flat, weight, n_nod, people
+    return made, n_nod
 
 
 def _window_box(wt: Any, h: int, w: int) -> tuple[float, float, float, float]:

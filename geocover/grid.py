@@ -22,6 +22,7 @@ to ``(x, y)``.
 from __future__ import annotations
 
 import math
+import threading
 from dataclasses import dataclass
 from typing import Any
 
@@ -32,6 +33,7 @@ __all__ = [
     "block_sums",
     "block_points",
     "PointBuffer",
+    "empty_small_pages",
     "apply_affine",
     "cell_centres",
     "block_corners",
@@ -262,6 +264,51 @@ def half_diagonal(transform: Any, factor: int = 1) -> float:
     return 0.5 * factor * max(d1, d2)
 
 
+#: cells per chunk in :meth:`PointBuffer.stage_rows` (temporaries of about 1 MB)
+STAGE_CELLS = 1 << 17
+
+
+def _hugepage_switch() -> Any:
+    try:  # numpy >= 2; private, so looked up with care and skipped when missing
+        from numpy._core.multiarray import _set_madvise_hugepage
+    except ImportError:
+        try:
+            from numpy.core.multiarray import _set_madvise_hugepage  # numpy 1.x
+        except ImportError:
+            return None
+    return _set_madvise_hugepage
+
+
+_SET_HUGEPAGE = _hugepage_switch()
+_HUGEPAGE_LOCK = threading.Lock()  # two threads switching at once could leave it off for good
+
+
+def empty_small_pages(shape: Any, dtype: Any) -> np.ndarray:
+    """``np.empty(shape, dtype)`` without numpy's request for transparent huge pages.
+
+    On Linux numpy asks (``madvise(MADV_HUGEPAGE)``) for 2 MB pages for
+    every array of 4 MB or more.  For memory that is written once, front to
+    back, as the output of a grid read is, that buys little, and on virtual
+    machines that hand freed 2 MB blocks back to the host (free page
+    reporting) the first touch of each huge page can cost milliseconds:
+    measured on the development VM, a fresh process first-touching 840 MB
+    took 0.2-1.9 s with huge pages and a steady 0.33 s with 4 KB pages.  The
+    switch is numpy's own (process-wide, set back at once, under a lock);
+    where it is missing this is plain ``np.empty``.
+
+    >>> empty_small_pages((2, 3), np.float64).shape
+    (2, 3)
+    """
+    if _SET_HUGEPAGE is None:
+        return np.empty(shape, dtype=dtype)
+    with _HUGEPAGE_LOCK:
+        before = _SET_HUGEPAGE(False)
+        try:
+            return np.empty(shape, dtype=dtype)
+        finally:
+            _SET_HUGEPAGE(before)
+
+
 class PointBuffer:
     """Output arrays for demand points that grow in place while windows stream in.
 
@@ -290,10 +337,11 @@ class PointBuffer:
     def __init__(self, capacity: int = 1024) -> None:
         capacity = max(int(capacity), 1)
         self.n = 0
-        self.xy = np.empty((capacity, 2), dtype=np.float64)
-        self.weight = np.empty(capacity, dtype=np.float64)
-        self.unit = np.empty(capacity, dtype=np.int64)
-        self.footprint = np.empty(capacity, dtype=np.float64)
+        # written once, front to back: small pages (see empty_small_pages)
+        self.xy = empty_small_pages((capacity, 2), np.float64)
+        self.weight = empty_small_pages(capacity, np.float64)
+        self.unit = empty_small_pages(capacity, np.int64)
+        self.footprint = empty_small_pages(capacity, np.float64)
         # while every point added has the same footprint it is kept here, not written per point
         self.uniform_footprint: float | None = None
 
@@ -328,45 +376,73 @@ class PointBuffer:
         self.n = hi
         del unit
 
-    def add_sorted_cells(
-        self, flat: np.ndarray, offset: int, weight: np.ndarray, transform: Any, grid_width: int, footprint: float
-    ) -> None:
-        """:meth:`add_cells` for a strip of whole grid rows: ``flat`` increasing, ``offset`` a multiple of ``grid_width``.
+    def stage_rows(self, mask: np.ndarray, values: np.ndarray, row_off: int, transform: Any, staged: np.ndarray) -> int:
+        """Write the cells of a strip of whole grid rows where ``mask`` holds, past the points added; return how many.
 
-        For a north-up grid the centres come from one row table and one column
-        table (the same arithmetic as :func:`cell_centres`, so the same
-        coordinates to the bit) instead of a division per cell.
+        ``mask`` and ``values`` are ``(h, grid width)`` arrays for grid rows
+        ``row_off .. row_off + h - 1``.  Each masked cell's flat index and
+        centre go into the unit and coordinate arrays after the last point
+        added, and its value into ``staged[:k]`` (contiguous, the dtype of
+        ``values``); nothing counts as added until :meth:`commit`, so a
+        caller that finds the strip unusable can drop it.  The work goes in
+        chunks of about ``STAGE_CELLS`` cells, so every temporary is small and
+        comes back from the allocator already touched: a strip-sized
+        temporary would be fresh memory, and first-touching memory costs more
+        than the arithmetic.  For a north-up grid the centres come from one
+        row table and one column table (the same arithmetic as
+        :func:`cell_centres`, so the same coordinates to the bit) instead of a
+        division per cell.
 
         >>> from affine import Affine
-        >>> buf = PointBuffer(1)
-        >>> buf.add_sorted_cells(np.array([1, 3]), 3, np.array([2.0, 4.0]), Affine(10, 0, 0, 0, -10, 100), 3, 7.0)
+        >>> t = Affine(10, 0, 0, 0, -10, 100)
+        >>> buf, staged = PointBuffer(1), np.empty(6)
+        >>> mask = np.array([[False, True, False], [True, False, False]])
+        >>> buf.stage_rows(mask, np.array([[0.0, 2.0, 0.0], [4.0, 0.0, 0.0]]), 1, t, staged)
+        2
+        >>> buf.commit(2, staged, 7.0)
         >>> xy, w, u, fp = buf.finish()
-        >>> xy.tolist(), u.tolist(), xy.tolist() == cell_centres(u, Affine(10, 0, 0, 0, -10, 100), 3).tolist()
-        ([[15.0, 85.0], [5.0, 75.0]], [4, 6], True)
+        >>> xy.tolist(), w.tolist(), u.tolist(), xy.tolist() == cell_centres(u, t, 3).tolist()
+        ([[15.0, 85.0], [5.0, 75.0]], [2.0, 4.0], [4, 6], True)
         """
+        h, w = mask.shape
         a, b, c, d, e, f = transform.a, transform.b, transform.c, transform.d, transform.e, transform.f
-        k = len(flat)
-        if b or d or offset % grid_width or k == 0:
-            self.add_cells(flat, offset, weight, transform, grid_width, footprint)
-            return
-        self.reserve(k)
-        lo, hi = self.n, self.n + k
-        np.add(flat, offset, out=self.unit[lo:hi], casting="unsafe")
-        nrows = int(flat[-1]) // grid_width + 1
-        starts = np.arange(nrows + 1, dtype=np.int64) * grid_width
-        per_row = np.diff(np.searchsorted(flat, starts))
-        pr = np.arange(offset // grid_width, offset // grid_width + nrows) + 0.5
-        y_row = pr * e
-        y_row += f
-        self.xy[lo:hi, 1] = np.repeat(y_row, per_row)
-        cols = np.repeat(starts[:-1], per_row)
-        np.subtract(flat, cols, out=cols, casting="unsafe")
-        pc = np.arange(grid_width) + 0.5
-        x_col = pc * a
-        x_col += c
-        self.xy[lo:hi, 0] = x_col[cols]
-        del cols
-        self.weight[lo:hi] = weight
+        self.reserve(int(np.count_nonzero(mask)))  # before anything is written: growing from empty starts afresh
+        north_up = not (b or d)
+        if north_up:
+            x_col = np.arange(w) + 0.5
+            x_col *= a
+            x_col += c
+        step = max(1, STAGE_CELLS // max(w, 1))
+        k = 0
+        for r0 in range(0, h, step):
+            r1 = min(h, r0 + step)
+            idx = np.flatnonzero(mask[r0:r1])
+            kc = len(idx)
+            if kc == 0:
+                continue
+            lo, hi = self.n + k, self.n + k + kc
+            np.take(values[r0:r1].reshape(-1), idx, out=staged[k : k + kc])
+            unit = self.unit[lo:hi]
+            np.add(idx, (row_off + r0) * w, out=unit, casting="unsafe")
+            if north_up:
+                starts = np.arange(r1 - r0 + 1, dtype=np.int64) * w
+                per_row = np.diff(np.searchsorted(idx, starts))
+                y_row = np.arange(row_off + r0, row_off + r1) + 0.5
+                y_row *= e
+                y_row += f
+                self.xy[lo:hi, 1] = np.repeat(y_row, per_row)
+                idx -= np.repeat(starts[:-1], per_row)  # now the column of each cell
+                self.xy[lo:hi, 0] = x_col[idx]
+            else:
+                cell_centres(unit, transform, w, out=self.xy[lo:hi])
+            k += kc
+            del idx, unit
+        return k
+
+    def commit(self, k: int, weight: np.ndarray, footprint: Any) -> None:
+        """Add the ``k`` points staged by :meth:`stage_rows`, with weights ``weight[:k]`` and their footprint."""
+        lo, hi = self.n, self.n + int(k)
+        self.weight[lo:hi] = weight[:k]
         self._set_footprint(lo, hi, footprint)
         self.n = hi
 

@@ -113,3 +113,51 @@ def test_clip_fraction_agrees_with_exactextract_on_random_polygons(points, radiu
     assert d.total == pytest.approx(ref, rel=1e-6, abs=1e-6)
     s = d.summary
     assert s["people_out"] + s["dropped"]["outside_clip"]["people"] == pytest.approx(s["people_in"], rel=1e-12)
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    st.integers(1, 9), st.integers(1, 13), st.integers(0, 40), st.sampled_from([1, 5, 16, 1 << 17]),
+    st.booleans(), st.integers(0, 2**32 - 1),
+)
+def test_staged_rows_are_the_masked_cells(h, w, row_off, chunk, rotated, seed):
+    # stage_rows works in row chunks; whatever the chunk, it must give the masked cells in row-major order,
+    # centres equal to the bit to cell_centres, and nothing added until commit (a dropped strip leaves no trace)
+    import geocover.grid as grid
+    from geocover.grid import PointBuffer, cell_centres
+
+    rng = np.random.default_rng(seed)
+    mask = rng.random((h, w)) < 0.4
+    values = rng.random((h, w)).astype(np.float32)
+    t = Affine(30, 4, 1000, 3, -30, 9000) if rotated else Affine(30, 0, 1000, 0, -30, 9000)
+    width = w
+    old = grid.STAGE_CELLS
+    grid.STAGE_CELLS = chunk
+    try:
+        buf = PointBuffer(0)
+        staged = np.empty(h * w, dtype=np.float32)
+        assert buf.stage_rows(~mask, values, row_off, t, staged) == int((~mask).sum())  # dropped: not committed
+        k = buf.stage_rows(mask, values, row_off, t, staged)
+        buf.commit(k, staged, 7.0)
+    finally:
+        grid.STAGE_CELLS = old
+    xy, wt, u, _ = buf.finish()
+    expected_units = np.flatnonzero(mask) + row_off * width
+    assert k == len(expected_units) and u.tolist() == expected_units.tolist()
+    assert wt.tolist() == values[mask].astype(np.float64).tolist()
+    assert np.array_equal(xy, cell_centres(expected_units, t, width))
+
+
+@pytest.mark.parametrize("state", [True, False])
+def test_small_page_arrays_leave_numpys_hugepage_switch_as_it_was(state):
+    import geocover.grid as grid
+
+    if grid._SET_HUGEPAGE is None:
+        pytest.skip("this numpy has no hugepage switch")
+    before = grid._SET_HUGEPAGE(state)
+    try:
+        arr = grid.empty_small_pages((1 << 20, 2), np.float64)  # 16 MB: numpy would advise huge pages
+        assert arr.shape == (1 << 20, 2) and arr.dtype == np.float64 and arr.flags.writeable
+        assert grid._SET_HUGEPAGE(state) is state  # what empty_small_pages left behind
+    finally:
+        grid._SET_HUGEPAGE(before)
