@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import logging
+import os
 
 import geopandas as gpd
 import networkx as nx
@@ -333,3 +334,61 @@ def test_point_snapped_onto_the_end_of_a_one_way_road_stands_on_its_node():
     r = reach_network(d, s, roads, 200.0, speed_field="kmh", oneway_field="way")
     assert r.notes["demand_snap"].segment[0] == 1 and r.notes["demand_snap"].t[0] == 1.0  # snapped to the one-way road
     assert r.matrix.toarray()[0, 0] == pytest.approx(100.0 + 50.0 / (5.0 / 3.6))
+
+
+# ----------------------------------------------------------------- searches shared by processes
+
+
+@pytest.mark.parametrize("workers", [2, 3])
+def test_searches_in_several_processes_give_the_same_pairs(workers):
+    rng = np.random.default_rng(11)
+    roads = _random_grid(rng, size=9)
+    demand_xy = rng.uniform(-60, 860, (150, 2))
+    site_xy = rng.uniform(0, 800, (13, 2))
+    args = (Demand(demand_xy, np.ones(len(demand_xy)), crs=UTM), Sites(site_xy, crs=UTM), roads, 90.0)
+    kw = dict(speed_field="kmh", oneway_field="oneway", max_snap_m=60.0, turn_penalty_s=5.0)
+    one = reach_network(*args, workers=1, **kw).matrix
+    many = reach_network(*args, workers=workers, **kw).matrix
+    assert one.nnz > 50 and one.nnz < one.shape[0] * one.shape[1]
+    assert (one.indptr == many.indptr).all() and (one.indices == many.indices).all()
+    assert (one.data == many.data).all()  # the same floating-point sums, not merely close
+    # and both are the networkx answer
+    expected = _oracle(roads, demand_xy, site_xy, 90.0, 5.0, 60.0, 5.0)  # networkx Dijkstra
+    got = {(int(i), int(j)): float(v) for i, j, v in zip(*many.nonzero(), many.data)}
+    assert got.keys() == expected.keys()
+    assert all(got[k] == pytest.approx(expected[k], abs=1e-9) for k in expected)
+
+
+def test_a_failed_search_process_is_redone_here(monkeypatch, caplog):
+    import geocover.network as nw
+
+    rng = np.random.default_rng(5)
+    roads = _random_grid(rng, size=8)
+    demand_xy = rng.uniform(0, 700, (80, 2))
+    site_xy = rng.uniform(0, 700, (8, 2))
+    args = (Demand(demand_xy, np.ones(len(demand_xy)), crs=UTM), Sites(site_xy, crs=UTM), roads, 80.0)
+    want = reach_network(*args, speed_field="kmh", workers=1).matrix
+    parent = os.getpid()
+    real_run = nw._SiteSearch.run
+
+    def run_failing_in_children(self, lo, hi):
+        if os.getpid() != parent:
+            raise MemoryError("simulated")
+        return real_run(self, lo, hi)
+
+    monkeypatch.setattr(nw._SiteSearch, "run", run_failing_in_children)
+    with caplog.at_level(logging.WARNING, logger="geocover.network"):
+        got = reach_network(*args, speed_field="kmh", workers=2).matrix
+    assert "search process failed" in caplog.text and "MemoryError" in caplog.text
+    assert (got != want).nnz == 0 and got.nnz == want.nnz
+
+
+def test_workers_must_be_a_whole_number():
+    roads = _roads([[(0.0, 0.0), (1000.0, 0.0)]], kmh=[36.0])
+    d = Demand(np.array([[600.0, 0.0]]), [1.0], crs=UTM)
+    s = Sites(np.array([[0.0, 0.0]]), crs=UTM)
+    for bad in (0, -1, 1.5, True, "2"):
+        with pytest.raises(ParameterError) as err:
+            reach_network(d, s, "no/such/roads.gpkg", 60.0, speed_field="kmh", workers=bad)  # before any read
+        assert err.value.param == "workers"
+    assert reach_network(d, s, roads, 60.0, speed_field="kmh", workers=4).matrix.nnz == 1  # more workers than sites
