@@ -269,11 +269,33 @@ def _reproject(frame: "gpd.GeoDataFrame", crs: "CRS", what: str, notes: list[str
     return to_crs(frame, crs, what)
 
 
+def _nonfinite_points(geoms: np.ndarray, present: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Which present geometries are (multi)points, and which of those have a non-finite coordinate.
+
+    For a point that is all GEOS's validity check looks at, and this is
+    several times faster than :func:`shapely.is_valid` on many points.
+    """
+    pointish = present & np.isin(shapely.get_type_id(geoms), _POINT_TYPES)
+    bad = np.zeros(len(geoms), dtype=bool)
+    if pointish.any():
+        coords, owner = shapely.get_coordinates(geoms[pointish], return_index=True)
+        nonfinite = ~np.isfinite(coords).all(axis=1)
+        if nonfinite.any():
+            bad[np.flatnonzero(pointish)[np.unique(owner[nonfinite])]] = True
+    return pointish, bad
+
+
 def _repair(geoms: np.ndarray, what: str, notes: list[str]) -> np.ndarray:
-    """Repair invalid geometries in place of the originals (a copy), count and say so."""
+    """Repair invalid geometries in place of the originals (a copy), count and say so.
+
+    Points with a non-finite coordinate cannot be repaired (there is no place
+    to put them); they are returned as they are for the caller to reject.
+    """
     present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    pointish, _ = _nonfinite_points(geoms, present)
     invalid = np.zeros(len(geoms), dtype=bool)
-    invalid[present] = ~shapely.is_valid(geoms[present])
+    others = present & ~pointish
+    invalid[others] = ~shapely.is_valid(geoms[others])
     count = int(invalid.sum())
     if not count:
         return geoms
@@ -334,6 +356,7 @@ def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
     is_poly = np.isin(types, _POLYGON_TYPES)
     reason = np.full(n, "", dtype=object)
     reason[~(is_point | is_poly)] = "geometry is not a point or a polygon"
+    reason[_nonfinite_points(geoms, ~missing & ~empty)[1]] = "point with a non-finite coordinate"
     reason[collapsed] = "polygon with no area"
     reason[empty] = "empty geometry"
     reason[missing] = "no geometry"
@@ -377,6 +400,10 @@ def _exclusion_layer(rule: Exclusion, crs: "CRS", notes: list[str]) -> tuple[np.
     present[present] = ~shapely.is_empty(geoms[present])
     if not present.all():
         notes.append(f"exclusion layer {rule.name}: ignored {int((~present).sum())} feature(s) without geometry")
+    nonfinite = _nonfinite_points(geoms, present)[1]
+    if nonfinite.any():
+        notes.append(f"exclusion layer {rule.name}: ignored {int(nonfinite.sum())} point(s) with a non-finite coordinate")
+        present &= ~nonfinite
     if not present.any():
         logger.warning("exclusion layer %s has no zone features%s", rule.name, " after its filter" if rule.where else "")
     return geoms[present], ids[present]
@@ -530,7 +557,8 @@ def _costs(frame: "gpd.GeoDataFrame", field: str | None, default: float, what: s
 
 
 def _labels(frame: "gpd.GeoDataFrame", field: str | None, prefix: str, ids: np.ndarray, what: str, required: bool) -> np.ndarray:
-    default = np.array([f"{prefix}_{i}" for i in ids], dtype=object)
+    default = np.empty(len(ids), dtype=object)
+    default[:] = [f"{prefix}_" + text for text in map(str, ids.tolist())]  # str of Python ints: 2x faster than f"{i}" of numpy ints
     if field is None or (not required and field not in frame.columns):
         return default
     column = _field(frame, field, what, "label_field")
