@@ -38,6 +38,9 @@ from __future__ import annotations
 
 import logging
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
+from contextlib import nullcontext
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Sequence
 
@@ -46,6 +49,7 @@ import shapely
 
 from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, require_projected
 from .choices import LatticeShape
+from .clearance import screen_zones
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
 from .landuse import land_use_shares
@@ -377,15 +381,6 @@ def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
 # --------------------------------------------------------------------------- rules
 
 
-@dataclass
-class _Hits:
-    """Per-site result of one exclusion layer."""
-
-    hit: np.ndarray  # bool
-    feature: np.ndarray  # int64 feature id of the nearest rejecting feature, -1
-    nearest: np.ndarray  # float distance to the nearest feature of the layer
-
-
 def _exclusion_layer(rule: Exclusion, crs: "CRS", notes: list[str]) -> tuple[np.ndarray, np.ndarray]:
     """The zone geometries (after the filter, repaired) and their feature ids."""
     frame, _ = _read(rule.layer, f"exclusion layer {rule.name}", allow_empty=True)
@@ -407,88 +402,6 @@ def _exclusion_layer(rule: Exclusion, crs: "CRS", notes: list[str]) -> tuple[np.
     if not present.any():
         logger.warning("exclusion layer %s has no zone features%s", rule.name, " after its filter" if rule.where else "")
     return geoms[present], ids[present]
-
-
-def _screen_zones(
-    footprints: np.ndarray,
-    xy: np.ndarray,
-    rows: np.ndarray,
-    geoms: np.ndarray,
-    ids: np.ndarray,
-    setback: float,
-    nearest: bool = True,
-) -> _Hits:
-    """Which footprints (at ``rows``) are closer than ``setback`` to a zone, and their nearest-zone distance.
-
-    Verdicts: one STRtree query (``dwithin`` the setback, widened by a
-    hair because GEOS's test is inclusive and rounded, or ``intersects``
-    with no setback), then the exact GEOS distance on the pairs found; a
-    site is rejected when one is below the setback.  Its nearest distance is
-    the least of those, since every zone within the setback was returned.
-
-    Nearest distance of the other sites, exactly, without a per-site
-    nearest-neighbour search (which is several times slower here):
-
-    1. an upper bound ``u``: the distance from the site's point to the
-       nearest zone vertex (a KD-tree query; any point of a zone bounds the
-       distance from above, so a subset of the vertices will do);
-    2. the zones whose envelope meets the footprint's envelope grown by
-       ``u`` (one STRtree envelope query): they include the nearest zone;
-    3. the least exact GEOS distance over those pairs.
-    """
-    n = len(footprints)
-    hit = np.zeros(n, dtype=bool)
-    feature = np.full(n, -1, dtype=np.int64)
-    near = np.full(n, np.inf)
-    if not len(geoms) or not len(rows):
-        return _Hits(hit, feature, near)
-    tree = shapely.STRtree(geoms)
-    query = footprints[rows]
-    if setback > 0:
-        pairs = tree.query(query, predicate="dwithin", distance=setback * (1 + 1e-9) + 1e-6)
-        dist = shapely.distance(query[pairs[0]], geoms[pairs[1]])
-        close = dist < setback
-        pairs, dist = pairs[:, close], dist[close]
-    else:
-        pairs = tree.query(query, predicate="intersects")
-        dist = np.zeros(pairs.shape[1])
-    if pairs.shape[1]:
-        # the nearest rejecting feature per site, ties to the lowest feature id
-        order = np.lexsort((ids[pairs[1]], dist, pairs[0]))
-        first = order[np.unique(pairs[0][order], return_index=True)[1]]
-        site = rows[pairs[0][first]]
-        hit[site] = True
-        feature[site] = ids[pairs[1][first]]
-        near[site] = dist[first]
-    rest = rows[~hit[rows]]
-    if nearest and len(rest):
-        near[rest] = _nearest_distance(tree, geoms, footprints[rest], xy[rest])
-    return _Hits(hit, feature, near)
-
-
-def _nearest_distance(tree: Any, geoms: np.ndarray, query: np.ndarray, xy: np.ndarray) -> np.ndarray:
-    """Exact distance from each footprint in ``query`` (standing at ``xy``) to the nearest of ``geoms``."""
-    from scipy.spatial import cKDTree
-
-    vertices = shapely.get_coordinates(geoms)
-    step = max(1, len(vertices) // (4 * len(geoms)))  # about four vertices per zone is a tight enough bound
-    upper, _ = cKDTree(vertices[::step], balanced_tree=False, compact_nodes=False).query(xy)
-    reach = upper * (1 + 1e-9) + 1e-6
-    grown = shapely.bounds(query) + np.stack([-reach, -reach, reach, reach], axis=1)
-    pairs = tree.query(shapely.box(grown[:, 0], grown[:, 1], grown[:, 2], grown[:, 3]))
-    dist = shapely.distance(query[pairs[0]], geoms[pairs[1]])
-    return _group_min(pairs[0], dist, len(query))
-
-
-def _group_min(index: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
-    """Least of ``values`` per ``index`` in ``0..n-1`` (inf where there is none)."""
-    out = np.full(n, np.inf)
-    if len(index):
-        order = np.argsort(index, kind="stable")
-        index, values = index[order], values[order]
-        starts = np.flatnonzero(np.r_[True, index[1:] != index[:-1]])
-        out[index[starts]] = np.minimum.reduceat(values, starts)
-    return out
 
 
 # --------------------------------------------------------------------------- helpers
@@ -625,6 +538,7 @@ def screen_sites(
     label_field: str | None = None,
     existing_label_field: str | None = None,
     crs: Any = None,
+    workers: int | None = None,
 ) -> tuple[Sites, ScreeningRecord]:
     """Screen candidate sites and return the usable ones with a verdict for every one.
 
@@ -669,6 +583,11 @@ def screen_sites(
     crs : CRS-like, optional
         Working CRS (projected, metres).  Default: the candidates' CRS when
         it is projected in metres, else a local UTM zone.
+    workers : int, optional
+        Threads for the exclusion-zone distances (GEOS and the KD-tree
+        release Python's lock).  Default: the machine's cores, at most 4; 1
+        runs everything in this thread.  The result is the same whatever
+        the number.
 
     Returns
     -------
@@ -706,6 +625,7 @@ def screen_sites(
         cost_ok = False
     if not cost_ok:
         raise ParameterError(f"default_cost: must be a number of 0 or more, got {default_cost!r}", "default_cost")
+    threads = _workers(workers)
     spacing = None if min_spacing_m is None else parse_distance(min_spacing_m, param="min_spacing_m")
     if spacing is not None and not (math.isfinite(spacing) and spacing >= 0):  # before any layer is read
         raise ParameterError(f"min_spacing_m: must be a distance of 0 m or more, got {min_spacing_m!r}", "min_spacing_m")
@@ -796,12 +716,13 @@ def screen_sites(
     nearest = np.full(total, np.inf)
     rows = np.flatnonzero(usable)
     zones: dict[str, np.ndarray] = {}
-    for rule in rules:
-        geoms, ids = _exclusion_layer(rule, working, notes)
-        zones[str(rule.name)] = geoms
-        hits = _screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m)
-        nearest = np.minimum(nearest, hits.nearest)
-        reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
+    with ThreadPoolExecutor(threads) if threads > 1 and rules else nullcontext() as pool:
+        for rule in rules:
+            geoms, ids = _exclusion_layer(rule, working, notes)
+            zones[str(rule.name)] = geoms
+            hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool)
+            nearest = np.minimum(nearest, hits.nearest)
+            reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
 
     # land use
     share = np.full(total, np.nan)
@@ -874,6 +795,16 @@ def screen_sites(
         n, len(kept_cand), k, f"; {len(pairs)} close pair(s) under {spacing:g} m" if spacing else "",
     )
     return sites, record
+
+
+def _workers(value: Any) -> int:
+    """The number of threads: ``value`` checked, or the usable cores (at most 4) when None."""
+    if value is None:
+        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+        return max(1, min(4, cores))
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
+        raise ParameterError(f"workers: must be a whole number of threads, 1 or more, got {value!r}", "workers")
+    return int(value)
 
 
 def _empty_message(n: int, verdict: np.ndarray, rule: np.ndarray) -> str:
