@@ -268,6 +268,27 @@ def _point_segment(px: np.ndarray, py: np.ndarray, ax: np.ndarray, ay: np.ndarra
     return np.where((r <= 0.0) | (len2 == 0.0), np.sqrt(pax * pax + pay * pay), out)
 
 
+def _run_distance(px: np.ndarray, py: np.ndarray, vx: np.ndarray, vy: np.ndarray) -> np.ndarray:
+    """:func:`_point_segment` from points ``(n, 1)`` to the segments between consecutive vertices ``(n, k)``.
+
+    The same values, bit for bit, with fewer operations: the distance to a
+    vertex is worked out once for the two segments it ends, and
+    ``(a.y - p.y)(b.x - a.x) - (a.x - p.x)(b.y - a.y)`` is the negative of
+    ``(p.x - a.x)(b.y - a.y) - (p.y - a.y)(b.x - a.x)`` exactly (negating is
+    exact in floating point), which only enters through its absolute value.
+    NaN vertices give NaN segments.
+    """
+    dx, dy = px - vx, py - vy
+    dv = np.sqrt(dx * dx + dy * dy)
+    pax, pay = dx[:, :-1], dy[:, :-1]
+    bax, bay = vx[:, 1:] - vx[:, :-1], vy[:, 1:] - vy[:, :-1]
+    len2 = bax * bax + bay * bay
+    r = (pax * bax + pay * bay) / len2
+    out = np.abs((pax * bay - pay * bax) / len2) * np.sqrt(len2)
+    out = np.where(r >= 1.0, dv[:, 1:], out)
+    return np.where((r <= 0.0) | (len2 == 0.0), dv[:, :-1], out)
+
+
 _SIMPLE = (1, 2)  # LineString, LinearRing: one run of segments
 _MULTI = (4, 5, 6, 7)  # MultiPoint, MultiLineString, MultiPolygon, GeometryCollection
 
@@ -303,13 +324,16 @@ def _pieces(geoms: np.ndarray) -> np.ndarray | None:
 class _ZoneGrid:
     """Zone segments as numpy arrays, and the zones binned by envelope centre (see the module notes).
 
-    Only grid members have segments here; ``seg`` holds them padded to the
-    widest member, ``(zone, k, [ax, ay, bx, by])``, NaN past a zone's last
-    segment.  A lone point is a segment from the point to itself.
+    Only grid members have their linework here: ``run_x[r], run_y[r]`` are
+    the vertices of grid row ``r``'s zone in order, with a NaN vertex
+    between two pieces (rings, lines, points) and after the last, so that
+    consecutive vertices are its segments and a segment touching a NaN is
+    none; a lone point is written twice (a segment from it to itself).
     """
 
     geoms: np.ndarray  # all zones
-    seg: np.ndarray  # (zones, width, 4) float64
+    run_x: np.ndarray  # (grid rows, width) float64
+    run_y: np.ndarray
     polygonal: np.ndarray  # per zone: a (multi)polygon, at distance 0 from the points it covers
     band: float  # a point farther than this from a polygon's boundary is told in or out by counting crossings
     cell: float  # grid: cell side, origin, shape, cell starts into the members sorted by cell
@@ -318,10 +342,8 @@ class _ZoneGrid:
     nx: int
     ny: int
     cell_start: np.ndarray
-    zone: np.ndarray  # members sorted by cell, with their envelope centre and radius (largest vertex distance)
-    cx: np.ndarray
-    cy: np.ndarray
-    radius: np.ndarray
+    zone: np.ndarray  # members sorted by cell, and their envelope centre and radius (largest vertex distance)
+    centre: np.ndarray  # (grid rows, [x, y, radius])
     rmax: float  # largest radius in the grid
     other: np.ndarray  # zones not in the grid (big, with many vertices, or collections): GEOS path
 
@@ -357,14 +379,19 @@ class _ZoneGrid:
         env = shapely.bounds(geoms)
         cx, cy = (env[:, 0] + env[:, 2]) / 2, (env[:, 1] + env[:, 3]) / 2
         radius = np.sqrt(np.maximum.reduceat((x - cx[owner]) ** 2 + (y - cy[owner]) ** 2, vstart))
-        live = nxt >= 0
-        nseg = np.bincount(owner[live], minlength=nz)
+        nseg = np.bincount(owner[nxt >= 0], minlength=nz)
+        # vertices written per zone: each once, a lone point twice, a NaN after each piece but the last
+        lone = nxt == np.arange(len(nxt))
+        piece_end = (nxt < 0) | lone
+        piece_end[vstart + vcount - 1] = False
+        step = 1 + lone.astype(np.int64) + piece_end
+        written = np.bincount(owner, weights=step, minlength=nz).astype(np.int64)
         if not usable.any():
             return None
         # zones much bigger than the typical one would make every site's bound weak, and many vertices
         # would make the padding wasteful: those go the GEOS way
         cap = 4.0 * float(np.median(radius[usable]))
-        member = usable & (radius <= cap) & (nseg <= _WIDTH) & (nseg > 0)
+        member = usable & (radius <= cap) & (written <= _WIDTH) & (nseg > 0)
         members = np.flatnonzero(member)
         if not len(members):
             return None
@@ -386,23 +413,28 @@ class _ZoneGrid:
         key = iy * nx + ix
         order = np.argsort(key, kind="stable")
         cell_start = np.searchsorted(key[order], np.arange(nx * ny + 1))
-        # padded segments of the members, in cell order: row r is zone members[order[r]]
+        # the members' vertex runs, in cell order: row r is zone members[order[r]]
         sorted_members = members[order]
-        width = int(nseg[sorted_members].max())
-        first_live = np.flatnonzero(live)
-        seg_start = np.cumsum(nseg) - nseg
+        width = int(written[sorted_members].max()) + 1  # room for a NaN after the last vertex
         k = np.arange(width)
-        valid = k < nseg[sorted_members][:, None]
-        at = first_live[np.minimum(seg_start[sorted_members][:, None] + k, len(first_live) - 1)]
-        seg = np.full((len(sorted_members), width, 4), np.nan)
-        seg[..., 0] = np.where(valid, x[at], np.nan)
-        seg[..., 1] = np.where(valid, y[at], np.nan)
-        seg[..., 2] = np.where(valid, x[nxt[at]], np.nan)
-        seg[..., 3] = np.where(valid, y[nxt[at]], np.nan)
-        band = max(1e-6, 1e-12 * float(np.abs(coords).max()))
+        size = written[sorted_members][:, None]
+        if (written == vcount).all():  # one piece per zone: a zone's run is its vertices as they are
+            take = vstart[sorted_members][:, None] + np.minimum(k, size - 1)
+        else:  # vertex j goes to position pos[j] of the runs laid end to end, its copy (lone point) after it
+            pos = np.cumsum(step) - step
+            flat = np.full(int(step.sum()), len(nxt))  # the slots left over are the NaNs
+            flat[pos] = np.arange(len(nxt))
+            flat[pos[lone] + 1] = np.flatnonzero(lone)
+            coords = np.vstack([coords, [[np.nan, np.nan]]])
+            take = flat[pos[vstart[sorted_members]][:, None] + np.minimum(k, size - 1)]
+        pad = k >= size[:, 0][:, None]
+        run_x, run_y = coords[:, 0][take], coords[:, 1][take]
+        run_x[pad] = np.nan
+        run_y[pad] = np.nan
+        band = max(1e-6, 1e-12 * float(np.abs(env[members]).max()))  # the envelopes hold every vertex
         return cls(
-            geoms, seg, np.isin(types[sorted_members], (3, 6)), band, cell, x0, y0, nx, ny, cell_start,
-            sorted_members, cx[sorted_members], cy[sorted_members], radius[sorted_members], rmax,
+            geoms, run_x, run_y, np.isin(types[sorted_members], (3, 6)), band, cell, x0, y0, nx, ny, cell_start,
+            sorted_members, np.stack([cx, cy, radius], axis=1)[sorted_members], rmax,
             np.flatnonzero(~member),
         )
 
@@ -416,16 +448,15 @@ class _ZoneGrid:
         """
         out = np.empty(len(row))
         cover = np.zeros(len(row), dtype=bool)
-        step = max(1, _SEGMENTS // self.seg.shape[1])
+        step = max(1, _SEGMENTS // self.run_x.shape[1])
         for a in range(0, len(row), step):
-            s = self.seg[row[a:a + step]]
-            ax, ay, bx, by = s[..., 0], s[..., 1], s[..., 2], s[..., 3]
+            vx, vy = self.run_x[row[a:a + step]], self.run_y[row[a:a + step]]
             x, y = px[a:a + step, None], py[a:a + step, None]
-            with np.errstate(invalid="ignore"):
-                out[a:a + step] = np.fmin.reduce(_point_segment(x, y, ax, ay, bx, by), axis=1)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[a:a + step] = np.fmin.reduce(_run_distance(x, y, vx, vy), axis=1)
                 if inside:
-                    with np.errstate(divide="ignore"):
-                        crosses = ((ay > y) != (by > y)) & (x < (bx - ax) * (y - ay) / (by - ay) + ax)
+                    ax, ay, bx, by = vx[:, :-1], vy[:, :-1], vx[:, 1:], vy[:, 1:]
+                    crosses = ((ay > y) != (by > y)) & (x < (bx - ax) * (y - ay) / (by - ay) + ax)
                     cover[a:a + step] = (np.count_nonzero(crosses, axis=1) % 2) == 1
         if inside:
             cover &= self.polygonal[row]
@@ -442,22 +473,21 @@ class _ZoneGrid:
         fx = (px - self.x0) / self.cell
         fy = (py - self.y0) / self.cell
         ix, iy = np.floor(fx), np.floor(fy)
-        edge = self.cell * np.minimum.reduce([fx - ix + 1, 2 - (fx - ix), fy - iy + 1, 2 - (fy - iy)])
+        ux, uy = fx - ix, fy - iy
+        edge = self.cell * (1.0 + np.minimum(np.minimum(ux, 1.0 - ux), np.minimum(uy, 1.0 - uy)))
         lo = np.clip(ix - 1, 0, self.nx - 1).astype(np.int64)
         hi = np.clip(ix + 1, 0, self.nx - 1).astype(np.int64)
         col_ok = (ix + 1 >= 0) & (ix - 1 <= self.nx - 1)
-        starts = np.empty((len(px), 3), dtype=np.int64)
-        counts = np.empty((len(px), 3), dtype=np.int64)
-        for j, dy in enumerate((-1, 0, 1)):
-            r = iy + dy
-            ok = col_ok & (r >= 0) & (r <= self.ny - 1)
-            base = np.clip(r, 0, self.ny - 1).astype(np.int64) * self.nx
-            starts[:, j] = self.cell_start[base + lo]
-            counts[:, j] = np.where(ok, self.cell_start[base + hi + 1] - starts[:, j], 0)
+        r = iy[:, None] + np.array([-1.0, 0.0, 1.0])
+        ok = col_ok[:, None] & (r >= 0) & (r <= self.ny - 1)
+        base = np.clip(r, 0, self.ny - 1).astype(np.int64) * self.nx
+        starts = self.cell_start[base + lo[:, None]]
+        counts = np.where(ok, self.cell_start[base + hi[:, None] + 1] - starts, 0)
         row, _ = _ranges(starts.ravel(), counts.ravel())
-        per_site = counts.sum(axis=1)
-        site = np.repeat(np.arange(len(px)), per_site)
-        lower = np.hypot(np.repeat(px, per_site) - self.cx[row], np.repeat(py, per_site) - self.cy[row]) - self.radius[row]
+        site = np.repeat(np.arange(len(px)), counts.sum(axis=1))
+        q = self.centre[row]
+        dx, dy = px[site] - q[:, 0], py[site] - q[:, 1]
+        lower = np.sqrt(dx * dx + dy * dy) - q[:, 2]
         return site, row, lower, edge
 
     def screen(
