@@ -51,6 +51,8 @@ import shapely
 
 __all__: list[str] = []  # internal to geocover.sites
 
+BUILD = "build"  # screen_zones' index: build the zones' grid when there are point sites
+
 _CHUNK = 4096  # sites per task: small arrays stay in cache, and there are tasks for every thread
 _SEGMENTS = 1 << 16  # segment distances evaluated per numpy batch
 _WIDTH = 64  # zones with more segments take the GEOS path
@@ -59,8 +61,9 @@ _MARGIN_REL, _MARGIN_ABS = 1e-9, 1e-6  # slack on bounds for rounding (metres)
 T = TypeVar("T")
 
 
-def _map(fn: Callable[[slice], T], n: int, pool: Executor | None, chunk: int = _CHUNK) -> list[T]:
+def in_chunks(fn: Callable[[slice], T], n: int, pool: Executor | None, chunk: int | None = None) -> list[T]:
     """``fn`` on consecutive slices of ``range(n)``, in order; in ``pool`` when given."""
+    chunk = chunk or _CHUNK
     parts = [slice(a, min(a + chunk, n)) for a in range(0, n, chunk)]
     if pool is None or len(parts) < 2:
         return [fn(part) for part in parts]
@@ -89,6 +92,7 @@ def screen_zones(
     setback: float,
     nearest: bool = True,
     pool: Executor | None = None,
+    index: "_ZoneGrid | None | str" = BUILD,
 ) -> Hits:
     """Which footprints (at ``rows``) are closer than ``setback`` to a zone, and their nearest-zone distance.
 
@@ -107,7 +111,10 @@ def screen_zones(
         return Hits(hit, feature, near)
     query = footprints[rows]
     on_grid = shapely.get_type_id(query) == 0
-    grid = _ZoneGrid.build(geoms, setback) if on_grid.any() else None
+    if isinstance(index, str):
+        grid = zone_index(geoms, setback) if on_grid.any() else None
+    else:  # built beforehand (None: there is none)
+        grid = index
     if grid is None:
         on_grid[:] = False
     trees: dict[str, Any] = {}
@@ -127,7 +134,7 @@ def screen_zones(
             site, zone, dist, up, done = grid.screen(gxy[part], setback, nearest)
             return site + part.start, zone, dist, up, done
 
-        parts = _map(on, len(gridded), pool)
+        parts = in_chunks(on, len(gridded), pool)
         found.append((gridded[np.concatenate([p[0] for p in parts])], np.concatenate([p[1] for p in parts]),
                       np.concatenate([p[2] for p in parts])))
         upper = np.concatenate([p[3] for p in parts])
@@ -159,18 +166,27 @@ def screen_zones(
     if grid is not None:
         done = free[gridded] & settled
         value = upper[done]
-        if len(grid.other):
+        if len(grid.other) and done.any():
             others = geoms[grid.other]
             pick = rows[gridded[done]]
             value = np.minimum(value, _by_envelope(trees["other"], others, footprints[pick], xy[pick], value, pool))
         near[rows[gridded[done]]] = value
         todo = free[gridded] & ~settled
         pick = rows[gridded[todo]]
-        near[pick] = _by_envelope(tree(), geoms, footprints[pick], xy[pick], upper[todo], pool)
+        if len(pick):
+            near[pick] = _by_envelope(tree(), geoms, footprints[pick], xy[pick], upper[todo], pool)
     pick = rows[rest_rows[free[rest_rows]]]
     if len(pick):
         near[pick] = _by_envelope(tree(), geoms, footprints[pick], xy[pick], np.full(len(pick), np.inf), pool)
     return Hits(hit, feature, near)
+
+
+def zone_index(geoms: np.ndarray, setback: float) -> "_ZoneGrid | None":
+    """The zones' grid for :func:`screen_zones` (None when the GEOS path is better for every site)."""
+    return _ZoneGrid.build(geoms, setback) if len(geoms) else None
+
+
+# --------------------------------------------------------------------------- the GEOS path
 
 
 def _close_pairs(
@@ -194,7 +210,7 @@ def _close_pairs(
         pairs[0] += part.start
         return pairs, np.zeros(pairs.shape[1])
 
-    found = _map(part_pairs, len(query), pool)
+    found = in_chunks(part_pairs, len(query), pool)
     pairs = np.concatenate([p for p, _ in found], axis=1) if found else np.zeros((2, 0), dtype=np.int64)
     dist = np.concatenate([d for _, d in found]) if found else np.zeros(0)
     return pairs[0], pairs[1], dist
@@ -229,7 +245,7 @@ def _by_envelope(
         dist = shapely.distance(query[part][pairs[0]], geoms[pairs[1]])
         return _group_min(pairs[0], dist, part.stop - part.start)
 
-    return np.concatenate(_map(part_min, len(query), pool)) if len(query) else np.zeros(0)
+    return np.concatenate(in_chunks(part_min, len(query), pool)) if len(query) else np.zeros(0)
 
 
 def _group_min(index: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
@@ -379,13 +395,17 @@ class _ZoneGrid:
         env = shapely.bounds(geoms)
         cx, cy = (env[:, 0] + env[:, 2]) / 2, (env[:, 1] + env[:, 3]) / 2
         radius = np.sqrt(np.maximum.reduceat((x - cx[owner]) ** 2 + (y - cy[owner]) ** 2, vstart))
-        nseg = np.bincount(owner[nxt >= 0], minlength=nz)
-        # vertices written per zone: each once, a lone point twice, a NaN after each piece but the last
-        lone = nxt == np.arange(len(nxt))
-        piece_end = (nxt < 0) | lone
-        piece_end[vstart + vcount - 1] = False
-        step = 1 + lone.astype(np.int64) + piece_end
-        written = np.bincount(owner, weights=step, minlength=nz).astype(np.int64)
+        one_piece = bool(np.isin(types, _SIMPLE + (3,)).all()) and not len(split)  # lines and rings, no holes
+        if one_piece:
+            nseg, written = vcount - 1, vcount
+        else:
+            nseg = np.bincount(owner[nxt >= 0], minlength=nz)
+            # vertices written per zone: each once, a lone point twice, a NaN after each piece but the last
+            lone = nxt == np.arange(len(nxt))
+            piece_end = (nxt < 0) | lone
+            piece_end[vstart + vcount - 1] = False
+            step = 1 + lone.astype(np.int64) + piece_end
+            written = np.bincount(owner, weights=step, minlength=nz).astype(np.int64)
         if not usable.any():
             return None
         # zones much bigger than the typical one would make every site's bound weak, and many vertices
@@ -412,13 +432,13 @@ class _ZoneGrid:
         iy = np.floor((gy - y0) / cell).astype(np.int64).clip(0, ny - 1)
         key = iy * nx + ix
         order = np.argsort(key, kind="stable")
-        cell_start = np.searchsorted(key[order], np.arange(nx * ny + 1))
+        cell_start = np.r_[0, np.cumsum(np.bincount(key, minlength=nx * ny))]
         # the members' vertex runs, in cell order: row r is zone members[order[r]]
         sorted_members = members[order]
         width = int(written[sorted_members].max()) + 1  # room for a NaN after the last vertex
         k = np.arange(width)
         size = written[sorted_members][:, None]
-        if (written == vcount).all():  # one piece per zone: a zone's run is its vertices as they are
+        if one_piece or (written == vcount).all():  # one piece per zone: its run is its vertices as they are
             take = vstart[sorted_members][:, None] + np.minimum(k, size - 1)
         else:  # vertex j goes to position pos[j] of the runs laid end to end, its copy (lone point) after it
             pos = np.cumsum(step) - step
@@ -465,20 +485,24 @@ class _ZoneGrid:
                 cover[doubt] = shapely.intersects_xy(self.geoms[self.zone[row[doubt]]], px[doubt], py[doubt])
         return out, cover
 
-    def candidates(self, px: np.ndarray, py: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """(site, grid row, lower bound of their distance) for the zones in the 3 x 3 cells around each site.
+    def candidates(
+        self, px: np.ndarray, py: np.ndarray, reach: int = 1
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(site, grid row, lower bound of their distance) for the zones in the cells around each site.
 
-        Also, per site, the distance from it to the outside of its 3 x 3 cells.
+        The cells are those at most ``reach`` columns and rows from the
+        site's own (3 x 3 for 1).  Also, per site, the distance from it to
+        the outside of those cells.
         """
         fx = (px - self.x0) / self.cell
         fy = (py - self.y0) / self.cell
         ix, iy = np.floor(fx), np.floor(fy)
         ux, uy = fx - ix, fy - iy
-        edge = self.cell * (1.0 + np.minimum(np.minimum(ux, 1.0 - ux), np.minimum(uy, 1.0 - uy)))
-        lo = np.clip(ix - 1, 0, self.nx - 1).astype(np.int64)
-        hi = np.clip(ix + 1, 0, self.nx - 1).astype(np.int64)
-        col_ok = (ix + 1 >= 0) & (ix - 1 <= self.nx - 1)
-        r = iy[:, None] + np.array([-1.0, 0.0, 1.0])
+        edge = self.cell * (reach + np.minimum(np.minimum(ux, 1.0 - ux), np.minimum(uy, 1.0 - uy)))
+        lo = np.clip(ix - reach, 0, self.nx - 1).astype(np.int64)
+        hi = np.clip(ix + reach, 0, self.nx - 1).astype(np.int64)
+        col_ok = (ix + reach >= 0) & (ix - reach <= self.nx - 1)
+        r = iy[:, None] + np.arange(-reach, reach + 1, dtype=np.float64)
         ok = col_ok[:, None] & (r >= 0) & (r <= self.ny - 1)
         base = np.clip(r, 0, self.ny - 1).astype(np.int64) * self.nx
         starts = self.cell_start[base + lo[:, None]]
@@ -537,4 +561,13 @@ class _ZoneGrid:
                 upper = np.minimum(upper, _group_min(site[idx], d, n))
         # a zone outside the 3 x 3 cells has its centre at least ``edge`` away, so it is at least edge - rmax away
         settled = np.isfinite(upper) & (_slack(upper) < edge - self.rmax - _MARGIN_ABS)
+        # the others (few) look one cell further out before the GEOS path
+        wider = np.flatnonzero(free & ~settled)
+        if len(wider):
+            site, row, lower, edge = self.candidates(px[wider], py[wider], reach=2)
+            maybe = np.flatnonzero(lower <= _slack(upper[wider][site]))
+            if len(maybe):
+                d = self.measure(px[wider][site[maybe]], py[wider][site[maybe]], row[maybe], inside=False)[0]
+                upper[wider] = np.minimum(upper[wider], _group_min(site[maybe], d, len(wider)))
+            settled[wider] = np.isfinite(upper[wider]) & (_slack(upper[wider]) < edge - self.rmax - _MARGIN_ABS)
         return (*pairs, upper, settled)

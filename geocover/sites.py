@@ -39,7 +39,7 @@ from __future__ import annotations
 import logging
 import math
 import os
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Executor, ThreadPoolExecutor
 from contextlib import nullcontext
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Sequence
@@ -49,7 +49,7 @@ import shapely
 
 from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, require_projected
 from .choices import LatticeShape
-from .clearance import screen_zones
+from .clearance import BUILD, in_chunks, screen_zones, zone_index
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
 from .landuse import land_use_shares
@@ -273,33 +273,48 @@ def _reproject(frame: "gpd.GeoDataFrame", crs: "CRS", what: str, notes: list[str
     return to_crs(frame, crs, what)
 
 
-def _nonfinite_points(geoms: np.ndarray, present: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Which present geometries are (multi)points, and which of those have a non-finite coordinate.
+@dataclass
+class _Shapes:
+    """What each geometry of a layer is, worked out once."""
 
-    For a point that is all GEOS's validity check looks at, and this is
-    several times faster than :func:`shapely.is_valid` on many points.
-    """
-    pointish = present & np.isin(shapely.get_type_id(geoms), _POINT_TYPES)
-    bad = np.zeros(len(geoms), dtype=bool)
-    if pointish.any():
-        coords, owner = shapely.get_coordinates(geoms[pointish], return_index=True)
-        nonfinite = ~np.isfinite(coords).all(axis=1)
-        if nonfinite.any():
-            bad[np.flatnonzero(pointish)[np.unique(owner[nonfinite])]] = True
-    return pointish, bad
+    missing: np.ndarray  # bool
+    empty: np.ndarray  # bool (False where missing)
+    types: np.ndarray  # shapely type id, -1 where missing
+    nonfinite: np.ndarray  # bool: a (multi)point with a NaN or infinite coordinate
+
+    @classmethod
+    def of(cls, geoms: np.ndarray) -> "_Shapes":
+        missing = shapely.is_missing(geoms)
+        empty = np.zeros(len(geoms), dtype=bool)
+        empty[~missing] = shapely.is_empty(geoms[~missing])
+        types = shapely.get_type_id(geoms)
+        # for a point, finite coordinates are all GEOS's validity check looks at, and this is
+        # several times faster than shapely.is_valid on many points
+        pointish = ~missing & ~empty & np.isin(types, _POINT_TYPES)
+        nonfinite = np.zeros(len(geoms), dtype=bool)
+        if pointish.any():
+            coords, owner = shapely.get_coordinates(geoms[pointish], return_index=True)
+            bad = ~np.isfinite(coords).all(axis=1)
+            if bad.any():
+                nonfinite[np.flatnonzero(pointish)[np.unique(owner[bad])]] = True
+        return cls(missing, empty, types, nonfinite)
 
 
-def _repair(geoms: np.ndarray, what: str, notes: list[str]) -> np.ndarray:
+def _repair(
+    geoms: np.ndarray, what: str, notes: list[str], pool: Executor | None = None, shapes: _Shapes | None = None
+) -> np.ndarray:
     """Repair invalid geometries in place of the originals (a copy), count and say so.
 
     Points with a non-finite coordinate cannot be repaired (there is no place
     to put them); they are returned as they are for the caller to reject.
+    Returns ``geoms`` itself when nothing needed repair.
     """
-    present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-    pointish, _ = _nonfinite_points(geoms, present)
+    shapes = shapes or _Shapes.of(geoms)
+    others = np.flatnonzero(~shapes.missing & ~shapes.empty & ~np.isin(shapes.types, _POINT_TYPES))
     invalid = np.zeros(len(geoms), dtype=bool)
-    others = present & ~pointish
-    invalid[others] = ~shapely.is_valid(geoms[others])
+    if len(others):
+        found = in_chunks(lambda part: ~shapely.is_valid(geoms[others[part]]), len(others), pool)
+        invalid[others] = np.concatenate(found)
     count = int(invalid.sum())
     if not count:
         return geoms
@@ -348,40 +363,57 @@ class _Located:
 
 def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
     raw = np.asarray(frame.geometry.array, dtype=object)
-    geoms = _repair(raw, what, notes)
+    before = _Shapes.of(raw)
+    geoms = _repair(raw, what, notes, shapes=before)
+    shapes = before if geoms is raw else _Shapes.of(geoms)
     n = len(geoms)
-    types = shapely.get_type_id(geoms)
-    # a polygon that make_valid turned into lines or points had no area to begin with
-    collapsed = np.isin(shapely.get_type_id(raw), _POLYGON_TYPES) & ~np.isin(types, _POLYGON_TYPES)
-    missing = shapely.is_missing(geoms)
-    empty = np.zeros(n, dtype=bool)
-    empty[~missing] = shapely.is_empty(geoms[~missing])
+    types = shapes.types
     is_point = np.isin(types, _POINT_TYPES)
     is_poly = np.isin(types, _POLYGON_TYPES)
     reason = np.full(n, "", dtype=object)
-    reason[~(is_point | is_poly)] = "geometry is not a point or a polygon"
-    reason[_nonfinite_points(geoms, ~missing & ~empty)[1]] = "point with a non-finite coordinate"
-    reason[collapsed] = "polygon with no area"
-    reason[empty] = "empty geometry"
-    reason[missing] = "no geometry"
-    usable = reason == ""
-    area_zero = np.zeros(n, dtype=bool)
-    area_zero[usable & is_poly] = shapely.area(geoms[usable & is_poly]) <= 0
-    reason[area_zero] = "polygon with no area"
-    usable = reason == ""
+    # later rules override earlier ones
+    rules = [
+        (~(is_point | is_poly), "geometry is not a point or a polygon"),
+        (shapes.nonfinite, "point with a non-finite coordinate"),
+        # a polygon that make_valid turned into lines or points had no area to begin with
+        (np.isin(before.types, _POLYGON_TYPES) & ~is_poly, "polygon with no area"),
+        (shapes.empty, "empty geometry"),
+        (shapes.missing, "no geometry"),
+    ]
+    unusable = np.zeros(n, dtype=bool)
+    for mask, text in rules:
+        if mask.any():
+            reason[mask] = text
+            unusable |= mask
+    polys = np.flatnonzero(~unusable & is_poly)
+    if len(polys):
+        area_zero = polys[shapely.area(geoms[polys]) <= 0]
+        reason[area_zero] = "polygon with no area"
+        unusable[area_zero] = True
+    usable = ~unusable
     xy = np.full((n, 2), np.nan)
     simple = usable & (types == 0)
     xy[simple] = shapely.get_coordinates(geoms[simple])
     other = usable & ~simple
-    xy[other] = shapely.get_coordinates(shapely.point_on_surface(geoms[other]))
-    footprint = np.where(usable, geoms, None)
+    if other.any():
+        xy[other] = shapely.get_coordinates(shapely.point_on_surface(geoms[other]))
+    footprint = np.where(usable, geoms, None) if unusable.any() else geoms.copy()
     return _Located(xy, footprint, is_point & usable, reason)
 
 
 # --------------------------------------------------------------------------- rules
 
 
-def _exclusion_layer(rule: Exclusion, crs: "CRS", notes: list[str]) -> tuple[np.ndarray, np.ndarray]:
+def _prepared_zones(rule: Exclusion, crs: "CRS", points: bool) -> tuple[np.ndarray, np.ndarray, list[str], Any]:
+    """:func:`_exclusion_layer` with its own notes, and the zones' grid index when there are point sites."""
+    notes: list[str] = []
+    geoms, ids = _exclusion_layer(rule, crs, notes)
+    return geoms, ids, notes, zone_index(geoms, rule.setback_m) if points and len(geoms) else None
+
+
+def _exclusion_layer(
+    rule: Exclusion, crs: "CRS", notes: list[str], pool: Executor | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """The zone geometries (after the filter, repaired) and their feature ids."""
     frame, _ = _read(rule.layer, f"exclusion layer {rule.name}", allow_empty=True)
     ids = _feature_ids(frame)
@@ -390,15 +422,17 @@ def _exclusion_layer(rule: Exclusion, crs: "CRS", notes: list[str]) -> tuple[np.
         notes.append(f"{rule.name}: the filter {rule.where!r} selects {int(keep.sum())} of {len(frame)} features")
         frame, ids = frame[keep], ids[keep]
     frame = _reproject(frame, crs, f"exclusion layer {rule.name}", notes)
-    geoms = _repair(np.asarray(frame.geometry.array, dtype=object), f"exclusion layer {rule.name}", notes)
-    present = ~shapely.is_missing(geoms)
-    present[present] = ~shapely.is_empty(geoms[present])
+    raw = np.asarray(frame.geometry.array, dtype=object)
+    shapes = _Shapes.of(raw)
+    geoms = _repair(raw, f"exclusion layer {rule.name}", notes, pool, shapes)
+    if geoms is not raw:
+        shapes = _Shapes.of(geoms)
+    present = ~shapes.missing & ~shapes.empty
     if not present.all():
         notes.append(f"exclusion layer {rule.name}: ignored {int((~present).sum())} feature(s) without geometry")
-    nonfinite = _nonfinite_points(geoms, present)[1]
-    if nonfinite.any():
-        notes.append(f"exclusion layer {rule.name}: ignored {int(nonfinite.sum())} point(s) with a non-finite coordinate")
-        present &= ~nonfinite
+    if shapes.nonfinite.any():
+        notes.append(f"exclusion layer {rule.name}: ignored {int(shapes.nonfinite.sum())} point(s) with a non-finite coordinate")
+        present &= ~shapes.nonfinite
     if not present.any():
         logger.warning("exclusion layer %s has no zone features%s", rule.name, " after its filter" if rule.where else "")
     return geoms[present], ids[present]
@@ -471,7 +505,7 @@ def _costs(frame: "gpd.GeoDataFrame", field: str | None, default: float, what: s
 
 def _labels(frame: "gpd.GeoDataFrame", field: str | None, prefix: str, ids: np.ndarray, what: str, required: bool) -> np.ndarray:
     default = np.empty(len(ids), dtype=object)
-    default[:] = [f"{prefix}_" + text for text in map(str, ids.tolist())]  # str of Python ints: 2x faster than f"{i}" of numpy ints
+    default[:] = [f"{prefix}_{i}" for i in ids.tolist()]  # Python ints format twice as fast as numpy's
     if field is None or (not required and field not in frame.columns):
         return default
     column = _field(frame, field, what, "label_field")
@@ -603,6 +637,31 @@ def screen_sites(
         When no candidate is left after screening (the message says which
         rule removed how many), or a layer, field or value is unusable.
     """
+    threads = _workers(workers)
+    with ThreadPoolExecutor(threads) if threads > 1 else nullcontext() as pool:
+        return _screen_sites(
+            candidates, exclude, land_use, existing, existing_role_field, existing_role, cost_field, default_cost,
+            study_area, min_spacing_m, label_field, existing_label_field, crs, pool,
+        )
+
+
+def _screen_sites(
+    candidates: Any,
+    exclude: Sequence[Exclusion] | Exclusion,
+    land_use: LandUseMask | None,
+    existing: Any,
+    existing_role_field: str | None,
+    existing_role: str | SiteRole,
+    cost_field: str | None,
+    default_cost: float,
+    study_area: Any,
+    min_spacing_m: float | None,
+    label_field: str | None,
+    existing_label_field: str | None,
+    crs: Any,
+    pool: Executor | None,
+) -> tuple[Sites, ScreeningRecord]:
+    """:func:`screen_sites` with its thread pool (None: all in this thread)."""
     notes: list[str] = []
     rules = [exclude] if isinstance(exclude, Exclusion) else list(exclude)
     names = [str(getattr(rule, "name", "")) for rule in rules]
@@ -625,7 +684,6 @@ def screen_sites(
         cost_ok = False
     if not cost_ok:
         raise ParameterError(f"default_cost: must be a number of 0 or more, got {default_cost!r}", "default_cost")
-    threads = _workers(workers)
     spacing = None if min_spacing_m is None else parse_distance(min_spacing_m, param="min_spacing_m")
     if spacing is not None and not (math.isfinite(spacing) and spacing >= 0):  # before any layer is read
         raise ParameterError(f"min_spacing_m: must be a distance of 0 m or more, got {min_spacing_m!r}", "min_spacing_m")
@@ -646,6 +704,9 @@ def screen_sites(
     else:
         working = _working_crs(crs, ex, "existing sites")
     cand = _reproject(cand, working, "candidates", notes)
+    if pool is not None:  # read, check and index the zone layers in the background while the sites are prepared
+        points = any((shapely.get_type_id(np.asarray(f.geometry.array)) == 0).any() for f in (cand, ex) if f is not None)
+        pending = [pool.submit(_prepared_zones, rule, working, points) for rule in rules]
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
     if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
@@ -716,13 +777,17 @@ def screen_sites(
     nearest = np.full(total, np.inf)
     rows = np.flatnonzero(usable)
     zones: dict[str, np.ndarray] = {}
-    with ThreadPoolExecutor(threads) if threads > 1 and rules else nullcontext() as pool:
-        for rule in rules:
+    for j, rule in enumerate(rules):
+        if pool is None:
             geoms, ids = _exclusion_layer(rule, working, notes)
-            zones[str(rule.name)] = geoms
-            hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool)
-            nearest = np.minimum(nearest, hits.nearest)
-            reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
+            index: Any = BUILD
+        else:
+            geoms, ids, layer_notes, index = pending[j].result()
+            notes.extend(layer_notes)
+        zones[str(rule.name)] = geoms
+        hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool, index=index)
+        nearest = np.minimum(nearest, hits.nearest)
+        reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
 
     # land use
     share = np.full(total, np.nan)
