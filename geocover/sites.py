@@ -49,7 +49,7 @@ import shapely
 
 from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, require_projected
 from .choices import LatticeShape
-from .clearance import BUILD, in_chunks, screen_zones, zone_index
+from .clearance import in_chunks, screen_zones
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
 from .landuse import land_use_shares
@@ -281,6 +281,7 @@ class _Shapes:
     empty: np.ndarray  # bool (False where missing)
     types: np.ndarray  # shapely type id, -1 where missing
     nonfinite: np.ndarray  # bool: a (multi)point with a NaN or infinite coordinate
+    point_xy: np.ndarray | None  # (n, 2) coordinates of the single points (NaN elsewhere), when there are no multipoints
 
     @classmethod
     def of(cls, geoms: np.ndarray) -> "_Shapes":
@@ -292,12 +293,16 @@ class _Shapes:
         # several times faster than shapely.is_valid on many points
         pointish = ~missing & ~empty & np.isin(types, _POINT_TYPES)
         nonfinite = np.zeros(len(geoms), dtype=bool)
+        point_xy = None
         if pointish.any():
             coords, owner = shapely.get_coordinates(geoms[pointish], return_index=True)
             bad = ~np.isfinite(coords).all(axis=1)
             if bad.any():
                 nonfinite[np.flatnonzero(pointish)[np.unique(owner[bad])]] = True
-        return cls(missing, empty, types, nonfinite)
+            if len(coords) == int(pointish.sum()):  # one coordinate each: single points
+                point_xy = np.full((len(geoms), 2), np.nan)
+                point_xy[pointish] = coords
+        return cls(missing, empty, types, nonfinite, point_xy)
 
 
 def _repair(
@@ -391,9 +396,13 @@ def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
         reason[area_zero] = "polygon with no area"
         unusable[area_zero] = True
     usable = ~unusable
-    xy = np.full((n, 2), np.nan)
     simple = usable & (types == 0)
-    xy[simple] = shapely.get_coordinates(geoms[simple])
+    if shapes.point_xy is not None:
+        xy = shapes.point_xy
+        xy[~simple] = np.nan
+    else:
+        xy = np.full((n, 2), np.nan)
+        xy[simple] = shapely.get_coordinates(geoms[simple])
     other = usable & ~simple
     if other.any():
         xy[other] = shapely.get_coordinates(shapely.point_on_surface(geoms[other]))
@@ -402,13 +411,6 @@ def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
 
 
 # --------------------------------------------------------------------------- rules
-
-
-def _prepared_zones(rule: Exclusion, crs: "CRS", points: bool) -> tuple[np.ndarray, np.ndarray, list[str], Any]:
-    """:func:`_exclusion_layer` with its own notes, and the zones' grid index when there are point sites."""
-    notes: list[str] = []
-    geoms, ids = _exclusion_layer(rule, crs, notes)
-    return geoms, ids, notes, zone_index(geoms, rule.setback_m) if points and len(geoms) else None
 
 
 def _exclusion_layer(
@@ -704,9 +706,6 @@ def _screen_sites(
     else:
         working = _working_crs(crs, ex, "existing sites")
     cand = _reproject(cand, working, "candidates", notes)
-    if pool is not None:  # read, check and index the zone layers in the background while the sites are prepared
-        points = any((shapely.get_type_id(np.asarray(f.geometry.array)) == 0).any() for f in (cand, ex) if f is not None)
-        pending = [pool.submit(_prepared_zones, rule, working, points) for rule in rules]
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
     if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
@@ -777,15 +776,10 @@ def _screen_sites(
     nearest = np.full(total, np.inf)
     rows = np.flatnonzero(usable)
     zones: dict[str, np.ndarray] = {}
-    for j, rule in enumerate(rules):
-        if pool is None:
-            geoms, ids = _exclusion_layer(rule, working, notes)
-            index: Any = BUILD
-        else:
-            geoms, ids, layer_notes, index = pending[j].result()
-            notes.extend(layer_notes)
+    for rule in rules:
+        geoms, ids = _exclusion_layer(rule, working, notes, pool)
         zones[str(rule.name)] = geoms
-        hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool, index=index)
+        hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool)
         nearest = np.minimum(nearest, hits.nearest)
         reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
 
