@@ -112,8 +112,8 @@ def main() -> None:
     print(f"load average before timing: {' '.join(f'{v:.2f}' for v in os.getloadavg())}  ({os.cpu_count()} cores)")
     t_base, pairs = timed(baseline, args.repeat)
     t_one, (sites, record) = timed(lambda: ours(1), args.repeat)
-    t_pool, (sites_p, record_p) = timed(lambda: ours(pooled), args.repeat)
-    t_zone1, hits = timed(lambda: zone_step(None), args.repeat)
+    t_pool, (_, record_p) = timed(lambda: ours(pooled), args.repeat)
+    t_zone1, _ = timed(lambda: zone_step(None), args.repeat)
     from concurrent.futures import ThreadPoolExecutor
 
     with ThreadPoolExecutor(pooled) as pool:

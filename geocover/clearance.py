@@ -3,48 +3,58 @@
 Core of the exclusion rule of :func:`geocover.sites.screen_sites`: arrays of
 shapely geometries in, arrays out; no files, no printing.
 
-Two questions per site and zone layer:
+Two answers per site and zone layer, both exact:
 
-* **Verdict**: is the site's footprint closer than the setback to a zone,
-  and if so which zone is nearest (ties to the lowest feature id)?  One
-  STRtree ``dwithin`` query, then the exact GEOS distance on the pairs found.
-* **Nearest distance** of the other sites (for ``nearest_exclusion_m``),
-  exactly, without a nearest-neighbour search per site (GEOS's
-  ``query_nearest`` is several times slower).  These sites lie outside every
-  zone, so their distance to a zone is the least distance to a segment (or a
-  lone point) of its linework.  For point sites that is computed with numpy,
-  with GEOS's own point-to-segment formula term for term (so the value is
-  the one ``shapely.distance`` gives, to the last bit on every case we
-  compared), over a few zones per site picked by a grid of zone centres:
+* **verdict**: is the site's footprint closer than the setback to a zone
+  (with no setback: does it intersect one), and if so, which zone is nearest
+  (ties to the lowest feature id) and how far;
+* **nearest distance** (``nearest_exclusion_m``) of the other sites: the
+  least distance to any zone.
 
-  1. zones are binned by the centre of their envelope into square cells of
-     side ``g``; a zone whose vertices are all within ``R`` of its centre is
-     at least ``|p - c| - R`` from a site ``p``;
-  2. a site's candidates are the zones in the 3 x 3 cells around it; the
-     exact distance to the one with the least lower bound gives an upper
-     bound ``u``, then the candidates whose lower bound does not exceed
-     ``u`` are measured exactly;
-  3. every zone outside the 3 x 3 block has its centre at least ``g`` away,
-     so it is at least ``g - R_max`` away: when that exceeds ``u`` the site
-     is done.  Other sites (far from the zones, or near a zone too big for
-     the grid) take the general path below, with ``u`` as their bound.
+Point sites (the common case, and the benchmark's) go through a grid of the
+zones, in numpy:
 
-  Parcels, and the sites the grid does not settle, use the general path: an
-  upper bound (the nearest zone vertex of a subsample, by KD-tree, or ``u``),
-  the zones whose envelope meets the footprint's envelope grown by it (one
-  STRtree query), and the least exact GEOS distance over those.
+1. each zone is binned by the centre ``c`` of its envelope into square cells
+   of side ``g``; with ``R`` the largest distance from ``c`` to a vertex, the
+   zone is at least ``|p - c| - R`` from a point ``p``.  ``g`` is about one
+   zone per cell and at least ``R_max`` plus the setback, so every zone
+   closer than the setback to a point is in the 3 x 3 cells around it;
+2. a site's candidates are the zones in those cells.  Those whose bound is
+   below the setback are measured exactly: the distance to the zone's
+   segments is GEOS's point-to-segment formula, operation for operation (so
+   it is the value ``shapely.distance`` gives, bit for bit), and whether a
+   polygon covers the point is told by counting ray crossings when the point
+   is farther than a hair (1e-6 m, more for huge coordinates) from its
+   boundary -- rounding cannot flip a crossing there -- and by GEOS's
+   ``intersects_xy`` when it is nearer.  A covered point is at distance 0,
+   as GEOS has it;
+3. a site with no zone within the setback takes the candidate with the least
+   bound, measures it (an upper bound ``u``), then measures the candidates
+   whose bound does not exceed ``u``.  A zone outside the 3 x 3 cells has
+   its centre at least ``e`` away (``e`` the distance from the site to the
+   edge of those cells), so when ``e - R_max > u`` the least is the answer;
+   the few sites it does not settle look at the 5 x 5 cells the same way.
 
-Both steps run in chunks of sites, in a thread pool when one is given
-(GEOS, scipy's KD-tree and large numpy operations release the GIL); the
-results do not depend on the chunking or the number of threads.
+Zones the grid leaves out (much bigger than the typical zone, with more than
+64 vertices and breaks, or collections), parcels and multipoint sites, and the rare
+sites the grid does not settle, take the GEOS path: verdicts from an STRtree
+``dwithin`` query and exact ``shapely.distance`` on its pairs; nearest
+distances from an upper bound (``u``, or the nearest vertex of a subsample
+of the zones' vertices by KD-tree), the zones whose envelope is within that
+bound of the site (one STRtree query), and the least exact distance.
+
+Work runs in chunks of sites, in a thread pool when one is given (GEOS and
+large numpy operations release the GIL); the results do not depend on the
+chunking or the number of threads.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from concurrent.futures import Executor
 from dataclasses import dataclass
-from typing import Any, Callable, Sequence, TypeVar
+from typing import Any, TypeVar
 
 import numpy as np
 import shapely
@@ -53,7 +63,7 @@ __all__: list[str] = []  # internal to geocover.sites
 
 _CHUNK = 4096  # sites per task: small arrays stay in cache, and there are tasks for every thread
 _SEGMENTS = 1 << 16  # segment distances evaluated per numpy batch
-_WIDTH = 64  # zones with more segments take the GEOS path
+_WIDTH = 64  # zones with more vertices (pieces' breaks included) take the GEOS path
 _MARGIN_REL, _MARGIN_ABS = 1e-9, 1e-6  # slack on bounds for rounding (metres)
 
 T = TypeVar("T")
@@ -259,32 +269,20 @@ def _ranges(starts: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np.ndar
     return np.arange(total) - np.repeat(offsets - starts, counts), owner
 
 
-def _point_segment(px: np.ndarray, py: np.ndarray, ax: np.ndarray, ay: np.ndarray, bx: np.ndarray, by: np.ndarray) -> np.ndarray:
-    """Distance from points p to segments ab, as GEOS computes it (``Distance::pointToSegment``), term for term.
-
-    A degenerate segment (a == b) gives the distance to the point a.
-    """
-    bax, bay = bx - ax, by - ay
-    pax, pay = px - ax, py - ay
-    len2 = bax * bax + bay * bay
-    with np.errstate(divide="ignore", invalid="ignore"):
-        r = (pax * bax + pay * bay) / len2
-        s = ((ay - py) * bax - (ax - px) * bay) / len2
-        out = np.abs(s) * np.sqrt(len2)
-    pbx, pby = px - bx, py - by
-    out = np.where(r >= 1.0, np.sqrt(pbx * pbx + pby * pby), out)
-    return np.where((r <= 0.0) | (len2 == 0.0), np.sqrt(pax * pax + pay * pay), out)
-
-
 def _run_distance(px: np.ndarray, py: np.ndarray, vx: np.ndarray, vy: np.ndarray) -> np.ndarray:
-    """:func:`_point_segment` from points ``(n, 1)`` to the segments between consecutive vertices ``(n, k)``.
+    """Distance from points ``(n, 1)`` to the segments between consecutive vertices ``(n, k)``, as GEOS has it.
 
-    The same values, bit for bit, with fewer operations: the distance to a
-    vertex is worked out once for the two segments it ends, and
-    ``(a.y - p.y)(b.x - a.x) - (a.x - p.x)(b.y - a.y)`` is the negative of
-    ``(p.x - a.x)(b.y - a.y) - (p.y - a.y)(b.x - a.x)`` exactly (negating is
-    exact in floating point), which only enters through its absolute value.
-    NaN vertices give NaN segments.
+    GEOS's ``Distance::pointToSegment(p, a, b)``: with ``r = ((p - a) . (b -
+    a)) / |b - a|^2``, the distance to ``a`` when ``r <= 0`` (or ``a == b``),
+    to ``b`` when ``r >= 1``, else ``|s| |b - a|`` with ``s = ((a.y - p.y)(b.x
+    - a.x) - (a.x - p.x)(b.y - a.y)) / |b - a|^2``; a point's distance is
+    ``sqrt(dx*dx + dy*dy)``.  The same operations in the same order give the
+    same values, bit for bit (tested against ``shapely.distance``), with two
+    savings: the distance to a vertex is worked out once for the two segments
+    it ends, and the numerator of ``s`` is taken as ``(p.x - a.x)(b.y - a.y)
+    - (p.y - a.y)(b.x - a.x)``, its exact negative (negating is exact in
+    floating point), which only enters through its absolute value.  NaN
+    vertices give NaN segments.
     """
     dx, dy = px - vx, py - vy
     dv = np.sqrt(dx * dx + dy * dy)

@@ -19,7 +19,7 @@ import pytest
 import shapely
 from shapely.geometry import LineString, MultiPoint, MultiPolygon, Point, Polygon, box
 
-import geocover.clearance as clearance
+from geocover import clearance
 from geocover.sites import Exclusion, screen_sites
 
 CRS = "EPSG:32626"
