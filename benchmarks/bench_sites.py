@@ -21,7 +21,7 @@ The machine is shared: the load average is printed first, and a ratio taken
 while other work runs (the baseline uses one core, the pool two) is not the
 ratio of an idle machine.
 
-Run:  /work/venv/bin/python benchmarks/bench_sites.py [--points 100000] [--zones 50000] [--setback 50] [--repeat 1] [--workers N]
+Run:  /work/venv/bin/python benchmarks/bench_sites.py [--points 100000] [--zones 50000] [--setback 50] [--repeat 1] [--threads N]
 """
 
 from __future__ import annotations
@@ -76,16 +76,16 @@ def main() -> None:
     import shapely
 
     from geocover.clearance import screen_zones
-    from geocover.sites import Exclusion, _workers, screen_sites
+    from geocover.sites import Exclusion, _threads, screen_sites
 
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--points", type=int, default=100_000)
     parser.add_argument("--zones", type=int, default=50_000)
     parser.add_argument("--setback", type=float, default=50.0)
     parser.add_argument("--repeat", type=int, default=1)
-    parser.add_argument("--workers", type=int, default=None, help="threads of the pooled runs (default: screen_sites' own)")
+    parser.add_argument("--threads", type=int, default=None, help="threads of the pooled runs (default: screen_sites' own)")
     args = parser.parse_args()
-    pooled = _workers(args.workers)
+    pooled = _threads(args.threads)
 
     cands, flood = synthetic(args.points, args.zones)
     pts = np.asarray(cands.geometry.array)
@@ -97,8 +97,8 @@ def main() -> None:
         tree = shapely.STRtree(zones)
         return tree.query(pts, predicate=predicate, **kwargs)
 
-    def ours(workers):
-        return screen_sites(cands, exclude=[Exclusion(flood, setback_m=args.setback, name="flood")], workers=workers)
+    def ours(threads):
+        return screen_sites(cands, exclude=[Exclusion(flood, setback_m=args.setback, name="flood")], threads=threads)
 
     xy = shapely.get_coordinates(pts)
     rows = np.arange(len(pts))

@@ -574,7 +574,7 @@ def screen_sites(
     label_field: str | None = None,
     existing_label_field: str | None = None,
     crs: Any = None,
-    workers: int | None = None,
+    threads: int | None = None,
 ) -> tuple[Sites, ScreeningRecord]:
     """Screen candidate sites and return the usable ones with a verdict for every one.
 
@@ -619,11 +619,11 @@ def screen_sites(
     crs : CRS-like, optional
         Working CRS (projected, metres).  Default: the candidates' CRS when
         it is projected in metres, else a local UTM zone.
-    workers : int, optional
-        Threads for the exclusion-zone distances (GEOS and the KD-tree
-        release Python's lock).  Default: the machine's cores, at most 4; 1
-        runs everything in this thread.  The result is the same whatever
-        the number.
+    threads : int, optional
+        Threads for checking the zones and measuring the sites' distances to
+        them (GEOS and large numpy operations release Python's lock).
+        Default: the usable cores, at most 4; 1 runs everything in this
+        thread.  The result is the same whatever the number.
 
     Returns
     -------
@@ -639,8 +639,8 @@ def screen_sites(
         When no candidate is left after screening (the message says which
         rule removed how many), or a layer, field or value is unusable.
     """
-    threads = _workers(workers)
-    with ThreadPoolExecutor(threads) if threads > 1 else nullcontext() as pool:
+    count = _threads(threads)
+    with ThreadPoolExecutor(count) if count > 1 else nullcontext() as pool:
         return _screen_sites(
             candidates, exclude, land_use, existing, existing_role_field, existing_role, cost_field, default_cost,
             study_area, min_spacing_m, label_field, existing_label_field, crs, pool,
@@ -856,13 +856,13 @@ def _screen_sites(
     return sites, record
 
 
-def _workers(value: Any) -> int:
+def _threads(value: Any) -> int:
     """The number of threads: ``value`` checked, or the usable cores (at most 4) when None."""
     if value is None:
         cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
         return max(1, min(4, cores))
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
-        raise ParameterError(f"workers: must be a whole number of threads, 1 or more, got {value!r}", "workers")
+        raise ParameterError(f"threads: must be a whole number, 1 or more, got {value!r}", "threads")
     return int(value)
 
 

@@ -97,7 +97,7 @@ def test_clearance_matches_brute_force_over_every_zone_kind(setback, seed):
     sites = _sites(zones, seed + 10)
     hit, feature, nearest = _brute(sites, zones, setback)
     assert 0 < hit.sum() < len(hit)
-    _, record = screen_sites(sites, exclude=[Exclusion(zones, setback_m=setback, name="zones")], workers=1)
+    _, record = screen_sites(sites, exclude=[Exclusion(zones, setback_m=setback, name="zones")], threads=1)
     assert np.array_equal(record.verdict == "excluded", hit)
     assert np.array_equal(record.feature, feature)
     # the same value GEOS gives, not merely close to it
@@ -113,7 +113,7 @@ def test_clearance_of_parcels_and_multipoints_matches_brute_force():
     ]
     sites = gpd.GeoDataFrame(geometry=geoms, crs=CRS)
     hit, feature, nearest = _brute(sites, zones, 30.0)
-    _, record = screen_sites(sites, exclude=[Exclusion(zones, setback_m=30.0, name="zones")], workers=1)
+    _, record = screen_sites(sites, exclude=[Exclusion(zones, setback_m=30.0, name="zones")], threads=1)
     assert np.array_equal(record.verdict == "excluded", hit)
     assert np.array_equal(record.feature, feature)
     np.testing.assert_array_equal(record.nearest_exclusion_m, nearest)
@@ -123,22 +123,22 @@ def test_threads_and_chunks_do_not_change_the_result(monkeypatch):
     zones = _zones(5)
     sites = _sites(zones, 6)
     rule = [Exclusion(zones, setback_m=40.0, name="zones")]
-    _, serial = screen_sites(sites, exclude=rule, workers=1)
+    _, serial = screen_sites(sites, exclude=rule, threads=1)
     monkeypatch.setattr(clearance, "_CHUNK", 37)  # many small tasks, handed out to the threads in any order
-    for workers in (1, 2, 3):
-        _, threaded = screen_sites(sites, exclude=rule, workers=workers)
+    for threads in (1, 2, 3):
+        _, threaded = screen_sites(sites, exclude=rule, threads=threads)
         for field in ("verdict", "rule", "layer", "feature", "site_index"):
-            assert np.array_equal(getattr(threaded, field), getattr(serial, field)), (workers, field)
+            assert np.array_equal(getattr(threaded, field), getattr(serial, field)), (threads, field)
         np.testing.assert_array_equal(threaded.nearest_exclusion_m, serial.nearest_exclusion_m)
 
 
 @pytest.mark.parametrize("value", [0, -1, 1.5, "2", True])
-def test_workers_must_be_a_whole_number_of_threads(value):
+def test_threads_must_be_a_whole_number(value):
     from geocover.errors import ParameterError
 
     zones = _zones(7)
-    with pytest.raises(ParameterError, match="workers"):
-        screen_sites(_sites(zones, 8), exclude=[Exclusion(zones, setback_m=10)], workers=value)
+    with pytest.raises(ParameterError, match="threads"):
+        screen_sites(_sites(zones, 8), exclude=[Exclusion(zones, setback_m=10)], threads=value)
 
 
 def test_sparse_zones_where_the_nearest_is_beyond_the_cells_searched_first():
@@ -151,7 +151,7 @@ def test_sparse_zones_where_the_nearest_is_beyond_the_cells_searched_first():
     )
     sites = gpd.GeoDataFrame(geometry=shapely.points(rng.uniform(-200, 4200, size=(3000, 2)) + [X0, Y0]), crs=CRS)
     hit, feature, nearest = _brute(sites, zones, 10.0)
-    _, record = screen_sites(sites, exclude=[Exclusion(zones, setback_m=10.0, name="zones")], workers=1)
+    _, record = screen_sites(sites, exclude=[Exclusion(zones, setback_m=10.0, name="zones")], threads=1)
     assert np.array_equal(record.verdict == "excluded", hit)
     assert np.array_equal(record.feature, feature)
     np.testing.assert_array_equal(record.nearest_exclusion_m, nearest)
