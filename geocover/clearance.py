@@ -33,7 +33,8 @@ zones, in numpy:
    whose bound does not exceed ``u``.  A zone outside the 3 x 3 cells has
    its centre at least ``e`` away (``e`` the distance from the site to the
    edge of those cells), so when ``e - R_max > u`` the least is the answer;
-   the few sites it does not settle look at the 5 x 5 cells the same way.
+   the few sites it does not settle look at the 5 x 5, 7 x 7 and 9 x 9 cells
+   the same way.
 
 Zones the grid leaves out (much bigger than the typical zone, with more than
 64 vertices and breaks, or collections), parcels and multipoint sites, and the rare
@@ -551,10 +552,12 @@ class _ZoneGrid:
                 upper = np.minimum(upper, _group_min(site[idx], d, n))
         # a zone outside the 3 x 3 cells has its centre at least ``edge`` away, so it is at least edge - rmax away
         settled = np.isfinite(upper) & (_slack(upper) < edge - self.rmax - _MARGIN_ABS)
-        # the others (few) look one cell further out before the GEOS path
-        wider = np.flatnonzero(free & ~settled)
-        if len(wider):
-            site, row, lower, edge = self.candidates(px[wider], py[wider], reach=2)
+        # the others (few) look a cell further out, and another, before the GEOS path
+        for reach in (2, 3, 4):
+            wider = np.flatnonzero(free & ~settled)
+            if not len(wider):
+                break
+            site, row, lower, edge = self.candidates(px[wider], py[wider], reach=reach)
             maybe = np.flatnonzero(lower <= _slack(upper[wider][site]))
             if len(maybe):
                 d = self.measure(px[wider][site[maybe]], py[wider][site[maybe]], row[maybe], inside=False)[0]
