@@ -72,14 +72,25 @@ T = TypeVar("T")
 
 def in_chunks(fn: Callable[[slice], T], n: int, pool: Executor | None, chunk: int | None = None) -> list[T]:
     """``fn`` on consecutive slices of ``range(n)``, in order; in ``pool`` when given."""
-    chunk = chunk or _CHUNK
-    parts = [slice(a, min(a + chunk, n)) for a in range(0, n, chunk)]
-    if pool is None or len(parts) < 2:
-        return [fn(part) for part in parts]
-    futures = [pool.submit(fn, part) for part in parts]
-    # the caller does the parts no thread has started: it would wait anyway, and a caller that is itself
-    # a task of the pool never waits for a part that no thread is free to start
-    return [fn(part) if future.cancel() else future.result() for part, future in zip(parts, futures)]
+    return Chunks(fn, n, pool, chunk).results()
+
+
+class Chunks:
+    """``fn`` on consecutive slices of ``range(n)``, started in ``pool`` (if any) now, results in order later."""
+
+    def __init__(self, fn: Callable[[slice], T], n: int, pool: Executor | None, chunk: int | None = None) -> None:
+        chunk = chunk or _CHUNK
+        self.fn = fn
+        self.parts = [slice(a, min(a + chunk, n)) for a in range(0, n, chunk)]
+        threaded = pool is not None and len(self.parts) > 1
+        self.futures = [pool.submit(fn, part) for part in self.parts] if threaded else None  # type: ignore[union-attr]
+
+    def results(self) -> list[Any]:
+        if self.futures is None:
+            return [self.fn(part) for part in self.parts]
+        # the caller does the parts no thread has started: it would wait anyway, and a caller that is itself
+        # a task of the pool never waits for a part that no thread is free to start
+        return [self.fn(part) if f.cancel() else f.result() for part, f in zip(self.parts, self.futures)]
 
 
 def _slack(bound: np.ndarray) -> np.ndarray:

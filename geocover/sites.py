@@ -42,14 +42,14 @@ import os
 from concurrent.futures import Executor, ThreadPoolExecutor
 from contextlib import nullcontext
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import numpy as np
 import shapely
 
 from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, require_projected
 from .choices import LatticeShape
-from .clearance import in_chunks, screen_zones
+from .clearance import Chunks, screen_zones
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
 from .landuse import land_use_shares
@@ -305,21 +305,37 @@ class _Shapes:
         return cls(missing, empty, types, nonfinite, point_xy)
 
 
+def _validity(geoms: np.ndarray, shapes: _Shapes, pool: Executor | None, chunk: int | None = None) -> Callable[[], np.ndarray]:
+    """Start checking which geometries are invalid (points: see :class:`_Shapes`); call the result to wait for it."""
+    others = np.flatnonzero(~shapes.missing & ~shapes.empty & ~np.isin(shapes.types, _POINT_TYPES))
+    checks = Chunks(lambda part: ~shapely.is_valid(geoms[others[part]]), len(others), pool, chunk)
+
+    def invalid() -> np.ndarray:
+        out = np.zeros(len(geoms), dtype=bool)
+        if len(others):
+            out[others] = np.concatenate(checks.results())
+        return out
+
+    return invalid
+
+
 def _repair(
-    geoms: np.ndarray, what: str, notes: list[str], pool: Executor | None = None, shapes: _Shapes | None = None
+    geoms: np.ndarray,
+    what: str,
+    notes: list[str],
+    pool: Executor | None = None,
+    shapes: _Shapes | None = None,
+    invalid: np.ndarray | None = None,
 ) -> np.ndarray:
     """Repair invalid geometries in place of the originals (a copy), count and say so.
 
     Points with a non-finite coordinate cannot be repaired (there is no place
     to put them); they are returned as they are for the caller to reject.
-    Returns ``geoms`` itself when nothing needed repair.
+    Returns ``geoms`` itself when nothing needed repair.  ``invalid``: the
+    invalid ones, when known already.
     """
-    shapes = shapes or _Shapes.of(geoms)
-    others = np.flatnonzero(~shapes.missing & ~shapes.empty & ~np.isin(shapes.types, _POINT_TYPES))
-    invalid = np.zeros(len(geoms), dtype=bool)
-    if len(others):
-        found = in_chunks(lambda part: ~shapely.is_valid(geoms[others[part]]), len(others), pool)
-        invalid[others] = np.concatenate(found)
+    if invalid is None:
+        invalid = _validity(geoms, shapes or _Shapes.of(geoms), pool)()
     count = int(invalid.sum())
     if not count:
         return geoms
@@ -413,20 +429,57 @@ def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
 # --------------------------------------------------------------------------- rules
 
 
+class _ZoneLayer:
+    """An exclusion layer read and being checked (in ``pool``, while the caller goes on); see :meth:`zones`.
+
+    An error met while reading is raised by :meth:`zones`, so that errors
+    come in the same order as when each layer is read where it is used.
+    """
+
+    def __init__(self, rule: Exclusion, crs: "CRS", pool: Executor | None) -> None:
+        self.rule = rule
+        self.notes: list[str] = []
+        self.error: BaseException | None = None
+        try:
+            frame, _ = _read(rule.layer, f"exclusion layer {rule.name}", allow_empty=True)
+            ids = _feature_ids(frame)
+            if rule.where:
+                keep = parse_filter(rule.where, "where").mask(frame, str(rule.name))
+                self.notes.append(f"{rule.name}: the filter {rule.where!r} selects {int(keep.sum())} of {len(frame)} features")
+                frame, ids = frame[keep], ids[keep]
+            frame = _reproject(frame, crs, f"exclusion layer {rule.name}", self.notes)
+            self.ids = ids
+            self.raw = np.asarray(frame.geometry.array, dtype=object)
+            self.shapes = _Shapes.of(self.raw)
+            # few big parts: a thread waiting for the lock between the caller's short steps starts each once
+            share = -(-len(self.raw) // 2) if pool is not None else None
+            self.invalid = _validity(self.raw, self.shapes, pool, max(_CHECK_CHUNK, share or 0))
+        except Exception as error:  # noqa: BLE001 -- re-raised by zones()
+            self.error = error
+
+    def zones(self, notes: list[str], pool: Executor | None) -> tuple[np.ndarray, np.ndarray]:
+        """The zone geometries (after the filter, repaired) and their feature ids; the layer's notes go to ``notes``."""
+        if self.error is not None:
+            raise self.error
+        notes.extend(self.notes)
+        return _finish_zones(self.rule, self.raw, self.shapes, self.ids, self.invalid(), notes, pool)
+
+
+_CHECK_CHUNK = 8192  # zones checked per task
+
+
 def _exclusion_layer(
     rule: Exclusion, crs: "CRS", notes: list[str], pool: Executor | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
     """The zone geometries (after the filter, repaired) and their feature ids."""
-    frame, _ = _read(rule.layer, f"exclusion layer {rule.name}", allow_empty=True)
-    ids = _feature_ids(frame)
-    if rule.where:
-        keep = parse_filter(rule.where, "where").mask(frame, str(rule.name))
-        notes.append(f"{rule.name}: the filter {rule.where!r} selects {int(keep.sum())} of {len(frame)} features")
-        frame, ids = frame[keep], ids[keep]
-    frame = _reproject(frame, crs, f"exclusion layer {rule.name}", notes)
-    raw = np.asarray(frame.geometry.array, dtype=object)
-    shapes = _Shapes.of(raw)
-    geoms = _repair(raw, f"exclusion layer {rule.name}", notes, pool, shapes)
+    return _ZoneLayer(rule, crs, pool).zones(notes, pool)
+
+
+def _finish_zones(
+    rule: Exclusion, raw: np.ndarray, shapes: _Shapes, ids: np.ndarray, invalid: np.ndarray, notes: list[str],
+    pool: Executor | None,
+) -> tuple[np.ndarray, np.ndarray]:
+    geoms = _repair(raw, f"exclusion layer {rule.name}", notes, pool, shapes, invalid)
     if geoms is not raw:
         shapes = _Shapes.of(geoms)
     present = ~shapes.missing & ~shapes.empty
@@ -706,6 +759,8 @@ def _screen_sites(
     else:
         working = _working_crs(crs, ex, "existing sites")
     cand = _reproject(cand, working, "candidates", notes)
+    # with threads, the zone layers are read now and checked while the sites are prepared
+    layers = [_ZoneLayer(rule, working, pool) for rule in rules] if pool is not None else None
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
     if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
@@ -752,9 +807,11 @@ def _screen_sites(
     verdict[inval] = Verdict.INVALID.value
     rule_text[inval] = located.invalid[inval]
     layer[inval] = cand_name
+    kept = usable.copy()  # verdict == "kept", without comparing strings
 
     def reject(mask: np.ndarray, what: Verdict, text: Any, name: str, feat: Any = -1) -> None:
-        new = mask & (verdict == Verdict.KEPT.value)
+        new = mask & kept
+        kept[new] = False
         verdict[new] = what.value
         rule_text[new] = text[new] if isinstance(text, np.ndarray) else text
         layer[new] = name
@@ -776,8 +833,8 @@ def _screen_sites(
     nearest = np.full(total, np.inf)
     rows = np.flatnonzero(usable)
     zones: dict[str, np.ndarray] = {}
-    for rule in rules:
-        geoms, ids = _exclusion_layer(rule, working, notes, pool)
+    for j, rule in enumerate(rules):
+        geoms, ids = layers[j].zones(notes, pool) if layers is not None else _exclusion_layer(rule, working, notes)
         zones[str(rule.name)] = geoms
         hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool)
         nearest = np.minimum(nearest, hits.nearest)
@@ -814,7 +871,7 @@ def _screen_sites(
         else:
             rule_text[i] = tag
 
-    kept_cand = np.flatnonzero(verdict[k:] == Verdict.KEPT.value)
+    kept_cand = np.flatnonzero(kept[k:])
     if n and not len(kept_cand):
         raise InputError(_empty_message(n, verdict[k:], rule_text[k:]))
 
