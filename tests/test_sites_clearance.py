@@ -155,3 +155,18 @@ def test_sparse_zones_where_the_nearest_is_beyond_the_cells_searched_first():
     assert np.array_equal(record.verdict == "excluded", hit)
     assert np.array_equal(record.feature, feature)
     np.testing.assert_array_equal(record.nearest_exclusion_m, nearest)
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_errors_come_in_the_same_order_with_threads(threads):
+    # with threads the zone layers are read before the candidates are checked; their errors must still
+    # come after the candidates' own, as they do when each layer is read where it is used
+    from geocover.errors import ParameterError
+
+    zones = _zones(9)
+    sites = _sites(zones, 10)
+    bad_filter = Exclusion(zones, setback_m=10, where="depth_m >= 1")  # no such field
+    with pytest.raises(ParameterError, match="cost_field"):
+        screen_sites(sites, exclude=[bad_filter], cost_field="price", threads=threads)
+    with pytest.raises(ParameterError, match="depth_m"):
+        screen_sites(sites, exclude=[bad_filter], threads=threads)
