@@ -9,14 +9,19 @@ setback).  Target (issue 4): screen_sites within 1.5x of the baseline.
 
 screen_sites does more than the baseline: the exact distance of every
 candidate pair (to make setbacks exact), the distance to the nearest zone
-for every site (for the sites with no zone within the setback: a KD-tree
-bound from the zone vertices, then exact distances to the zones whose
-envelope is within that bound; ``STRtree.query_nearest`` is timed beside it
-for comparison), the validity check of the zones, representative points, the
-record.  The script times those parts separately too, so a missed target
-says where the time goes.
+for every site (``nearest_exclusion_m``), the validity check and repair of
+the zones, representative points, labels, the record.  The script times the
+whole call with one thread and with the default thread pool, the
+exclusion-zone step alone (verdicts and nearest distances), and checks the
+result against GEOS: the verdicts against the baseline's pairs and
+``shapely.distance``, the nearest distances of the kept sites against
+``STRtree.query_nearest`` (timed too, for comparison).
 
-Run:  /work/venv/bin/python benchmarks/bench_sites.py [--points 100000] [--zones 50000] [--setback 50] [--repeat 1]
+The machine is shared: the load average is printed first, and a ratio taken
+while other work runs (the baseline uses one core, the pool two) is not the
+ratio of an idle machine.
+
+Run:  /work/venv/bin/python benchmarks/bench_sites.py [--points 100000] [--zones 50000] [--setback 50] [--repeat 1] [--threads N]
 """
 
 from __future__ import annotations
@@ -66,16 +71,21 @@ def timed(fn, repeat: int):
 
 
 def main() -> None:
+    import os
+
     import shapely
 
-    from geocover.sites import Exclusion, _nearest_distance, _screen_zones, screen_sites
+    from geocover.clearance import screen_zones
+    from geocover.sites import Exclusion, _threads, screen_sites
 
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--points", type=int, default=100_000)
     parser.add_argument("--zones", type=int, default=50_000)
     parser.add_argument("--setback", type=float, default=50.0)
     parser.add_argument("--repeat", type=int, default=1)
+    parser.add_argument("--threads", type=int, default=None, help="threads of the pooled runs (default: screen_sites' own)")
     args = parser.parse_args()
+    pooled = _threads(args.threads)
 
     cands, flood = synthetic(args.points, args.zones)
     pts = np.asarray(cands.geometry.array)
@@ -87,37 +97,57 @@ def main() -> None:
         tree = shapely.STRtree(zones)
         return tree.query(pts, predicate=predicate, **kwargs)
 
-    def ours():
-        return screen_sites(cands, exclude=[Exclusion(flood, setback_m=args.setback, name="flood")])
+    def ours(threads):
+        return screen_sites(cands, exclude=[Exclusion(flood, setback_m=args.setback, name="flood")], threads=threads)
 
-    # warm up imports and caches (pyproj, scipy.spatial, GEOS) outside the timings
-    screen_sites(cands.iloc[:100], exclude=[Exclusion(flood.iloc[:100], setback_m=args.setback, name="flood")])
-    t_base, pairs = timed(baseline, args.repeat)
-    t_ours, (sites, record) = timed(ours, args.repeat)
-
-    # the verdict step alone (no nearest distances), and the nearest-distance step alone, on the same data
     xy = shapely.get_coordinates(pts)
     rows = np.arange(len(pts))
     ids = np.arange(len(zones), dtype=np.int64)
-    t_verdict, hits = timed(lambda: _screen_zones(pts, xy, rows, zones, ids, args.setback, nearest=False), args.repeat)
-    rest = np.flatnonzero(~hits.hit)
-    tree = shapely.STRtree(zones)
-    t_near, near = timed(lambda: _nearest_distance(tree, zones, pts[rest], xy[rest]), 1)
-    t_qn, (_, qn) = timed(lambda: tree.query_nearest(pts[rest], return_distance=True, all_matches=False), 1)
-    worst = float(np.max(np.abs(near - qn))) if len(rest) else 0.0
 
-    hit_sites = np.unique(pairs[0])
-    rejected = int((record.site_index < 0).sum())
-    if args.setback == 0:
-        assert rejected == len(hit_sites), "with no setback the verdicts must match the baseline's intersecting pairs"
+    def zone_step(pool):
+        return screen_zones(pts, xy, rows, zones, ids, args.setback, pool=pool)
+
+    # warm up imports and caches (pyproj, scipy.spatial, GEOS) outside the timings
+    screen_sites(cands.iloc[:100], exclude=[Exclusion(flood.iloc[:100], setback_m=args.setback, name="flood")])
+    print(f"load average before timing: {' '.join(f'{v:.2f}' for v in os.getloadavg())}  ({os.cpu_count()} cores)")
+    t_base, pairs = timed(baseline, args.repeat)
+    t_one, (sites, record) = timed(lambda: ours(1), args.repeat)
+    t_pool, (_, record_p) = timed(lambda: ours(pooled), args.repeat)
+    t_zone1, _ = timed(lambda: zone_step(None), args.repeat)
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(pooled) as pool:
+        t_zonep, _ = timed(lambda: zone_step(pool), args.repeat)
+    t_base2, _ = timed(baseline, args.repeat)  # again, after: the load may have changed meanwhile
+    t_base = min(t_base, t_base2)
+
+    # checks against GEOS
+    same = all(np.array_equal(getattr(record, f), getattr(record_p, f)) for f in ("verdict", "feature", "nearest_exclusion_m"))
+    assert same, "the pooled run must give the same record as the single-threaded one"
+    if args.setback > 0:
+        d = shapely.distance(pts[pairs[0]], zones[pairs[1]])
+        close = pairs[:, d < args.setback]
+    else:
+        close = pairs
+    expect = np.zeros(len(pts), dtype=bool)
+    expect[close[0]] = True
+    assert np.array_equal(record.verdict == "excluded", expect), "verdicts must match the baseline's pairs"
+    kept = np.flatnonzero(~expect)
+    t_qn, (_, qn) = timed(lambda: shapely.STRtree(zones).query_nearest(pts[kept], return_distance=True, all_matches=False), 1)
+    worst = float(np.max(np.abs(record.nearest_exclusion_m[kept] - qn))) if len(kept) else 0.0
+    bitwise = bool(np.array_equal(record.nearest_exclusion_m[kept], qn))
+
+    rejected = int(expect.sum())
     print(f"candidates {args.points:,}  zones {args.zones:,}  setback {args.setback:g} m  best of {args.repeat}")
-    print(f"baseline STRtree build + query({predicate}):       {t_base:8.3f} s  ({pairs.shape[1]:,} pairs, {len(hit_sites):,} sites)")
-    print(f"screen_sites, whole (in-memory layers):          {t_ours:8.3f} s  ({len(sites):,} kept, {rejected:,} rejected)")
-    print(f"  ratio to baseline:                             {t_ours / t_base:8.2f} x   (target <= 1.5 x)")
-    print(f"verdict step alone (tree, query, exact dist.):   {t_verdict:8.3f} s")
-    print(f"  ratio to baseline:                             {t_verdict / t_base:8.2f} x")
-    print(f"nearest-zone distance for {len(rest):,} other sites:  {t_near:8.3f} s")
-    print(f"  vs STRtree.query_nearest on the same sites:    {t_qn:8.3f} s  (max difference {worst:.2e} m)")
+    print(f"baseline STRtree build + query({predicate}):       {t_base:8.3f} s  ({pairs.shape[1]:,} pairs, {len(np.unique(pairs[0])):,} sites)")
+    print(f"screen_sites, whole, 1 thread:                   {t_one:8.3f} s  ({len(sites):,} kept, {rejected:,} rejected)")
+    print(f"  ratio to baseline:                             {t_one / t_base:8.2f} x   (target <= 1.5 x)")
+    print(f"screen_sites, whole, {pooled} threads:                 {t_pool:8.3f} s")
+    print(f"  ratio to baseline:                             {t_pool / t_base:8.2f} x   (target <= 1.5 x)")
+    print(f"exclusion step alone (verdicts + nearest), 1 thread: {t_zone1:6.3f} s  ({t_zone1 / t_base:.2f} x)")
+    print(f"exclusion step alone, {pooled} threads:                {t_zonep:6.3f} s  ({t_zonep / t_base:.2f} x)")
+    print(f"STRtree.query_nearest for the {len(kept):,} kept sites: {t_qn:8.3f} s  "
+          f"(max difference {worst:.2e} m, identical: {bitwise})")
 
 
 if __name__ == "__main__":

@@ -38,14 +38,18 @@ from __future__ import annotations
 
 import logging
 import math
+import os
+from concurrent.futures import Executor, ThreadPoolExecutor
+from contextlib import nullcontext
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import numpy as np
 import shapely
 
 from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, require_projected
 from .choices import LatticeShape
+from .clearance import Chunks, screen_zones
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
 from .landuse import land_use_shares
@@ -269,11 +273,69 @@ def _reproject(frame: "gpd.GeoDataFrame", crs: "CRS", what: str, notes: list[str
     return to_crs(frame, crs, what)
 
 
-def _repair(geoms: np.ndarray, what: str, notes: list[str]) -> np.ndarray:
-    """Repair invalid geometries in place of the originals (a copy), count and say so."""
-    present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-    invalid = np.zeros(len(geoms), dtype=bool)
-    invalid[present] = ~shapely.is_valid(geoms[present])
+@dataclass
+class _Shapes:
+    """What each geometry of a layer is, worked out once."""
+
+    missing: np.ndarray  # bool
+    empty: np.ndarray  # bool (False where missing)
+    types: np.ndarray  # shapely type id, -1 where missing
+    nonfinite: np.ndarray  # bool: a (multi)point with a NaN or infinite coordinate
+    point_xy: np.ndarray | None  # (n, 2) coordinates of the single points (NaN elsewhere), when there are no multipoints
+
+    @classmethod
+    def of(cls, geoms: np.ndarray) -> "_Shapes":
+        missing = shapely.is_missing(geoms)
+        empty = np.zeros(len(geoms), dtype=bool)
+        empty[~missing] = shapely.is_empty(geoms[~missing])
+        types = shapely.get_type_id(geoms)
+        # for a point, finite coordinates are all GEOS's validity check looks at, and this is
+        # several times faster than shapely.is_valid on many points
+        pointish = ~missing & ~empty & np.isin(types, _POINT_TYPES)
+        nonfinite = np.zeros(len(geoms), dtype=bool)
+        point_xy = None
+        if pointish.any():
+            coords, owner = shapely.get_coordinates(geoms[pointish], return_index=True)
+            bad = ~np.isfinite(coords).all(axis=1)
+            if bad.any():
+                nonfinite[np.flatnonzero(pointish)[np.unique(owner[bad])]] = True
+            if len(coords) == int(pointish.sum()):  # one coordinate each: single points
+                point_xy = np.full((len(geoms), 2), np.nan)
+                point_xy[pointish] = coords
+        return cls(missing, empty, types, nonfinite, point_xy)
+
+
+def _validity(geoms: np.ndarray, shapes: _Shapes, pool: Executor | None, chunk: int | None = None) -> Callable[[], np.ndarray]:
+    """Start checking which geometries are invalid (points: see :class:`_Shapes`); call the result to wait for it."""
+    others = np.flatnonzero(~shapes.missing & ~shapes.empty & ~np.isin(shapes.types, _POINT_TYPES))
+    checks = Chunks(lambda part: ~shapely.is_valid(geoms[others[part]]), len(others), pool, chunk)
+
+    def invalid() -> np.ndarray:
+        out = np.zeros(len(geoms), dtype=bool)
+        if len(others):
+            out[others] = np.concatenate(checks.results())
+        return out
+
+    return invalid
+
+
+def _repair(
+    geoms: np.ndarray,
+    what: str,
+    notes: list[str],
+    pool: Executor | None = None,
+    shapes: _Shapes | None = None,
+    invalid: np.ndarray | None = None,
+) -> np.ndarray:
+    """Repair invalid geometries in place of the originals (a copy), count and say so.
+
+    Points with a non-finite coordinate cannot be repaired (there is no place
+    to put them); they are returned as they are for the caller to reject.
+    Returns ``geoms`` itself when nothing needed repair.  ``invalid``: the
+    invalid ones, when known already.
+    """
+    if invalid is None:
+        invalid = _validity(geoms, shapes or _Shapes.of(geoms), pool)()
     count = int(invalid.sum())
     if not count:
         return geoms
@@ -322,146 +384,113 @@ class _Located:
 
 def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
     raw = np.asarray(frame.geometry.array, dtype=object)
-    geoms = _repair(raw, what, notes)
+    before = _Shapes.of(raw)
+    geoms = _repair(raw, what, notes, shapes=before)
+    shapes = before if geoms is raw else _Shapes.of(geoms)
     n = len(geoms)
-    types = shapely.get_type_id(geoms)
-    # a polygon that make_valid turned into lines or points had no area to begin with
-    collapsed = np.isin(shapely.get_type_id(raw), _POLYGON_TYPES) & ~np.isin(types, _POLYGON_TYPES)
-    missing = shapely.is_missing(geoms)
-    empty = np.zeros(n, dtype=bool)
-    empty[~missing] = shapely.is_empty(geoms[~missing])
+    types = shapes.types
     is_point = np.isin(types, _POINT_TYPES)
     is_poly = np.isin(types, _POLYGON_TYPES)
     reason = np.full(n, "", dtype=object)
-    reason[~(is_point | is_poly)] = "geometry is not a point or a polygon"
-    reason[collapsed] = "polygon with no area"
-    reason[empty] = "empty geometry"
-    reason[missing] = "no geometry"
-    usable = reason == ""
-    area_zero = np.zeros(n, dtype=bool)
-    area_zero[usable & is_poly] = shapely.area(geoms[usable & is_poly]) <= 0
-    reason[area_zero] = "polygon with no area"
-    usable = reason == ""
-    xy = np.full((n, 2), np.nan)
+    # later rules override earlier ones
+    rules = [
+        (~(is_point | is_poly), "geometry is not a point or a polygon"),
+        (shapes.nonfinite, "point with a non-finite coordinate"),
+        # a polygon that make_valid turned into lines or points had no area to begin with
+        (np.isin(before.types, _POLYGON_TYPES) & ~is_poly, "polygon with no area"),
+        (shapes.empty, "empty geometry"),
+        (shapes.missing, "no geometry"),
+    ]
+    unusable = np.zeros(n, dtype=bool)
+    for mask, text in rules:
+        if mask.any():
+            reason[mask] = text
+            unusable |= mask
+    polys = np.flatnonzero(~unusable & is_poly)
+    if len(polys):
+        area_zero = polys[shapely.area(geoms[polys]) <= 0]
+        reason[area_zero] = "polygon with no area"
+        unusable[area_zero] = True
+    usable = ~unusable
     simple = usable & (types == 0)
-    xy[simple] = shapely.get_coordinates(geoms[simple])
+    if shapes.point_xy is not None:
+        xy = shapes.point_xy
+        xy[~simple] = np.nan
+    else:
+        xy = np.full((n, 2), np.nan)
+        xy[simple] = shapely.get_coordinates(geoms[simple])
     other = usable & ~simple
-    xy[other] = shapely.get_coordinates(shapely.point_on_surface(geoms[other]))
-    footprint = np.where(usable, geoms, None)
+    if other.any():
+        xy[other] = shapely.get_coordinates(shapely.point_on_surface(geoms[other]))
+    footprint = np.where(usable, geoms, None) if unusable.any() else geoms.copy()
     return _Located(xy, footprint, is_point & usable, reason)
 
 
 # --------------------------------------------------------------------------- rules
 
 
-@dataclass
-class _Hits:
-    """Per-site result of one exclusion layer."""
+class _ZoneLayer:
+    """An exclusion layer read and being checked (in ``pool``, while the caller goes on); see :meth:`zones`.
 
-    hit: np.ndarray  # bool
-    feature: np.ndarray  # int64 feature id of the nearest rejecting feature, -1
-    nearest: np.ndarray  # float distance to the nearest feature of the layer
+    An error met while reading is raised by :meth:`zones`, so that errors
+    come in the same order as when each layer is read where it is used.
+    """
+
+    def __init__(self, rule: Exclusion, crs: "CRS", pool: Executor | None) -> None:
+        self.rule = rule
+        self.notes: list[str] = []
+        self.error: BaseException | None = None
+        try:
+            frame, _ = _read(rule.layer, f"exclusion layer {rule.name}", allow_empty=True)
+            ids = _feature_ids(frame)
+            if rule.where:
+                keep = parse_filter(rule.where, "where").mask(frame, str(rule.name))
+                self.notes.append(f"{rule.name}: the filter {rule.where!r} selects {int(keep.sum())} of {len(frame)} features")
+                frame, ids = frame[keep], ids[keep]
+            frame = _reproject(frame, crs, f"exclusion layer {rule.name}", self.notes)
+            self.ids = ids
+            self.raw = np.asarray(frame.geometry.array, dtype=object)
+            self.shapes = _Shapes.of(self.raw)
+            # few big parts: a thread waiting for the lock between the caller's short steps starts each once
+            share = -(-len(self.raw) // 2) if pool is not None else None
+            self.invalid = _validity(self.raw, self.shapes, pool, max(_CHECK_CHUNK, share or 0))
+        except Exception as error:  # noqa: BLE001 -- re-raised by zones()
+            self.error = error
+
+    def zones(self, notes: list[str], pool: Executor | None) -> tuple[np.ndarray, np.ndarray]:
+        """The zone geometries (after the filter, repaired) and their feature ids; the layer's notes go to ``notes``."""
+        if self.error is not None:
+            raise self.error
+        notes.extend(self.notes)
+        return _finish_zones(self.rule, self.raw, self.shapes, self.ids, self.invalid(), notes, pool)
 
 
-def _exclusion_layer(rule: Exclusion, crs: "CRS", notes: list[str]) -> tuple[np.ndarray, np.ndarray]:
+_CHECK_CHUNK = 8192  # zones checked per task
+
+
+def _exclusion_layer(
+    rule: Exclusion, crs: "CRS", notes: list[str], pool: Executor | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """The zone geometries (after the filter, repaired) and their feature ids."""
-    frame, _ = _read(rule.layer, f"exclusion layer {rule.name}", allow_empty=True)
-    ids = _feature_ids(frame)
-    if rule.where:
-        keep = parse_filter(rule.where, "where").mask(frame, str(rule.name))
-        notes.append(f"{rule.name}: the filter {rule.where!r} selects {int(keep.sum())} of {len(frame)} features")
-        frame, ids = frame[keep], ids[keep]
-    frame = _reproject(frame, crs, f"exclusion layer {rule.name}", notes)
-    geoms = _repair(np.asarray(frame.geometry.array, dtype=object), f"exclusion layer {rule.name}", notes)
-    present = ~shapely.is_missing(geoms)
-    present[present] = ~shapely.is_empty(geoms[present])
+    return _ZoneLayer(rule, crs, pool).zones(notes, pool)
+
+
+def _finish_zones(
+    rule: Exclusion, raw: np.ndarray, shapes: _Shapes, ids: np.ndarray, invalid: np.ndarray, notes: list[str],
+    pool: Executor | None,
+) -> tuple[np.ndarray, np.ndarray]:
+    geoms = _repair(raw, f"exclusion layer {rule.name}", notes, pool, shapes, invalid)
+    if geoms is not raw:
+        shapes = _Shapes.of(geoms)
+    present = ~shapes.missing & ~shapes.empty
     if not present.all():
         notes.append(f"exclusion layer {rule.name}: ignored {int((~present).sum())} feature(s) without geometry")
+    if shapes.nonfinite.any():
+        notes.append(f"exclusion layer {rule.name}: ignored {int(shapes.nonfinite.sum())} point(s) with a non-finite coordinate")
+        present &= ~shapes.nonfinite
     if not present.any():
         logger.warning("exclusion layer %s has no zone features%s", rule.name, " after its filter" if rule.where else "")
     return geoms[present], ids[present]
-
-
-def _screen_zones(
-    footprints: np.ndarray,
-    xy: np.ndarray,
-    rows: np.ndarray,
-    geoms: np.ndarray,
-    ids: np.ndarray,
-    setback: float,
-    nearest: bool = True,
-) -> _Hits:
-    """Which footprints (at ``rows``) are closer than ``setback`` to a zone, and their nearest-zone distance.
-
-    Verdicts: one STRtree query (``dwithin`` the setback, widened by a
-    hair because GEOS's test is inclusive and rounded, or ``intersects``
-    with no setback), then the exact GEOS distance on the pairs found; a
-    site is rejected when one is below the setback.  Its nearest distance is
-    the least of those, since every zone within the setback was returned.
-
-    Nearest distance of the other sites, exactly, without a per-site
-    nearest-neighbour search (which is several times slower here):
-
-    1. an upper bound ``u``: the distance from the site's point to the
-       nearest zone vertex (a KD-tree query; any point of a zone bounds the
-       distance from above, so a subset of the vertices will do);
-    2. the zones whose envelope meets the footprint's envelope grown by
-       ``u`` (one STRtree envelope query): they include the nearest zone;
-    3. the least exact GEOS distance over those pairs.
-    """
-    n = len(footprints)
-    hit = np.zeros(n, dtype=bool)
-    feature = np.full(n, -1, dtype=np.int64)
-    near = np.full(n, np.inf)
-    if not len(geoms) or not len(rows):
-        return _Hits(hit, feature, near)
-    tree = shapely.STRtree(geoms)
-    query = footprints[rows]
-    if setback > 0:
-        pairs = tree.query(query, predicate="dwithin", distance=setback * (1 + 1e-9) + 1e-6)
-        dist = shapely.distance(query[pairs[0]], geoms[pairs[1]])
-        close = dist < setback
-        pairs, dist = pairs[:, close], dist[close]
-    else:
-        pairs = tree.query(query, predicate="intersects")
-        dist = np.zeros(pairs.shape[1])
-    if pairs.shape[1]:
-        # the nearest rejecting feature per site, ties to the lowest feature id
-        order = np.lexsort((ids[pairs[1]], dist, pairs[0]))
-        first = order[np.unique(pairs[0][order], return_index=True)[1]]
-        site = rows[pairs[0][first]]
-        hit[site] = True
-        feature[site] = ids[pairs[1][first]]
-        near[site] = dist[first]
-    rest = rows[~hit[rows]]
-    if nearest and len(rest):
-        near[rest] = _nearest_distance(tree, geoms, footprints[rest], xy[rest])
-    return _Hits(hit, feature, near)
-
-
-def _nearest_distance(tree: Any, geoms: np.ndarray, query: np.ndarray, xy: np.ndarray) -> np.ndarray:
-    """Exact distance from each footprint in ``query`` (standing at ``xy``) to the nearest of ``geoms``."""
-    from scipy.spatial import cKDTree
-
-    vertices = shapely.get_coordinates(geoms)
-    step = max(1, len(vertices) // (4 * len(geoms)))  # about four vertices per zone is a tight enough bound
-    upper, _ = cKDTree(vertices[::step], balanced_tree=False, compact_nodes=False).query(xy)
-    reach = upper * (1 + 1e-9) + 1e-6
-    grown = shapely.bounds(query) + np.stack([-reach, -reach, reach, reach], axis=1)
-    pairs = tree.query(shapely.box(grown[:, 0], grown[:, 1], grown[:, 2], grown[:, 3]))
-    dist = shapely.distance(query[pairs[0]], geoms[pairs[1]])
-    return _group_min(pairs[0], dist, len(query))
-
-
-def _group_min(index: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
-    """Least of ``values`` per ``index`` in ``0..n-1`` (inf where there is none)."""
-    out = np.full(n, np.inf)
-    if len(index):
-        order = np.argsort(index, kind="stable")
-        index, values = index[order], values[order]
-        starts = np.flatnonzero(np.r_[True, index[1:] != index[:-1]])
-        out[index[starts]] = np.minimum.reduceat(values, starts)
-    return out
 
 
 # --------------------------------------------------------------------------- helpers
@@ -530,7 +559,8 @@ def _costs(frame: "gpd.GeoDataFrame", field: str | None, default: float, what: s
 
 
 def _labels(frame: "gpd.GeoDataFrame", field: str | None, prefix: str, ids: np.ndarray, what: str, required: bool) -> np.ndarray:
-    default = np.array([f"{prefix}_{i}" for i in ids], dtype=object)
+    default = np.empty(len(ids), dtype=object)
+    default[:] = [f"{prefix}_{i}" for i in ids.tolist()]  # Python ints format twice as fast as numpy's
     if field is None or (not required and field not in frame.columns):
         return default
     column = _field(frame, field, what, "label_field")
@@ -597,6 +627,7 @@ def screen_sites(
     label_field: str | None = None,
     existing_label_field: str | None = None,
     crs: Any = None,
+    threads: int | None = None,
 ) -> tuple[Sites, ScreeningRecord]:
     """Screen candidate sites and return the usable ones with a verdict for every one.
 
@@ -641,6 +672,11 @@ def screen_sites(
     crs : CRS-like, optional
         Working CRS (projected, metres).  Default: the candidates' CRS when
         it is projected in metres, else a local UTM zone.
+    threads : int, optional
+        Threads for checking the zones and measuring the sites' distances to
+        them (GEOS and large numpy operations release Python's lock).
+        Default: the usable cores, at most 4; 1 runs everything in this
+        thread.  The result is the same whatever the number.
 
     Returns
     -------
@@ -656,6 +692,31 @@ def screen_sites(
         When no candidate is left after screening (the message says which
         rule removed how many), or a layer, field or value is unusable.
     """
+    count = _threads(threads)
+    with ThreadPoolExecutor(count) if count > 1 else nullcontext() as pool:
+        return _screen_sites(
+            candidates, exclude, land_use, existing, existing_role_field, existing_role, cost_field, default_cost,
+            study_area, min_spacing_m, label_field, existing_label_field, crs, pool,
+        )
+
+
+def _screen_sites(
+    candidates: Any,
+    exclude: Sequence[Exclusion] | Exclusion,
+    land_use: LandUseMask | None,
+    existing: Any,
+    existing_role_field: str | None,
+    existing_role: str | SiteRole,
+    cost_field: str | None,
+    default_cost: float,
+    study_area: Any,
+    min_spacing_m: float | None,
+    label_field: str | None,
+    existing_label_field: str | None,
+    crs: Any,
+    pool: Executor | None,
+) -> tuple[Sites, ScreeningRecord]:
+    """:func:`screen_sites` with its thread pool (None: all in this thread)."""
     notes: list[str] = []
     rules = [exclude] if isinstance(exclude, Exclusion) else list(exclude)
     names = [str(getattr(rule, "name", "")) for rule in rules]
@@ -698,6 +759,8 @@ def screen_sites(
     else:
         working = _working_crs(crs, ex, "existing sites")
     cand = _reproject(cand, working, "candidates", notes)
+    # with threads, the zone layers are read now and checked while the sites are prepared
+    layers = [_ZoneLayer(rule, working, pool) for rule in rules] if pool is not None else None
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
     if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
@@ -744,9 +807,11 @@ def screen_sites(
     verdict[inval] = Verdict.INVALID.value
     rule_text[inval] = located.invalid[inval]
     layer[inval] = cand_name
+    kept = usable.copy()  # verdict == "kept", without comparing strings
 
     def reject(mask: np.ndarray, what: Verdict, text: Any, name: str, feat: Any = -1) -> None:
-        new = mask & (verdict == Verdict.KEPT.value)
+        new = mask & kept
+        kept[new] = False
         verdict[new] = what.value
         rule_text[new] = text[new] if isinstance(text, np.ndarray) else text
         layer[new] = name
@@ -768,10 +833,10 @@ def screen_sites(
     nearest = np.full(total, np.inf)
     rows = np.flatnonzero(usable)
     zones: dict[str, np.ndarray] = {}
-    for rule in rules:
-        geoms, ids = _exclusion_layer(rule, working, notes)
+    for j, rule in enumerate(rules):
+        geoms, ids = layers[j].zones(notes, pool) if layers is not None else _exclusion_layer(rule, working, notes)
         zones[str(rule.name)] = geoms
-        hits = _screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m)
+        hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool)
         nearest = np.minimum(nearest, hits.nearest)
         reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
 
@@ -806,7 +871,7 @@ def screen_sites(
         else:
             rule_text[i] = tag
 
-    kept_cand = np.flatnonzero(verdict[k:] == Verdict.KEPT.value)
+    kept_cand = np.flatnonzero(kept[k:])
     if n and not len(kept_cand):
         raise InputError(_empty_message(n, verdict[k:], rule_text[k:]))
 
@@ -846,6 +911,16 @@ def screen_sites(
         n, len(kept_cand), k, f"; {len(pairs)} close pair(s) under {spacing:g} m" if spacing else "",
     )
     return sites, record
+
+
+def _threads(value: Any) -> int:
+    """The number of threads: ``value`` checked, or the usable cores (at most 4) when None."""
+    if value is None:
+        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+        return max(1, min(4, cores))
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
+        raise ParameterError(f"threads: must be a whole number, 1 or more, got {value!r}", "threads")
+    return int(value)
 
 
 def _empty_message(n: int, verdict: np.ndarray, rule: np.ndarray) -> str:

@@ -443,3 +443,19 @@ def test_bad_costs_and_roles_name_the_feature_id_a_user_sees(world):
     stations.loc[2, "status"] = "maybe"
     with pytest.raises(InputError, match="holds 'maybe' at feature 2"):
         screen_sites(None, existing=stations, existing_role_field="status")
+
+
+def test_points_with_non_finite_coordinates_are_rejected_not_a_crash():
+    # a point with a NaN or infinite coordinate has no place: GEOS calls it invalid and make_valid cannot repair it
+    cands = gpd.GeoDataFrame(
+        geometry=[Point(X0, Y0), Point(np.nan, Y0), shapely.MultiPoint([(X0, Y0), (np.inf, Y0)]), Point(X0 + 100, Y0)],
+        crs=CRS,
+    )
+    zones = gpd.GeoDataFrame(geometry=[Point(np.inf, Y0), Point(X0 + 10, Y0)], crs=CRS)
+    sites, record = screen_sites(cands, exclude=[Exclusion(zones, setback_m=5, name="wells")])
+    assert record.verdict.tolist() == ["kept", "invalid", "invalid", "kept"]
+    assert record.rule[1] == record.rule[2] == "point with a non-finite coordinate"
+    assert len(sites) == 2
+    # the non-finite well is left out (with a note); the other one is 10 m and 90 m away
+    np.testing.assert_allclose(record.nearest_exclusion_m[[0, 3]], [10.0, 90.0], rtol=0, atol=1e-9)
+    assert any("1 point(s) with a non-finite coordinate" in note for note in record.notes)
