@@ -617,6 +617,11 @@ class _SiteSearch:
         Returns ``(rows, seconds, count)``: the demand rows of each site in
         turn (unordered within a site), their times, and how many each site has.
         """
+        rows, vals, fill, count = self.run_buffers(lo, hi)
+        return rows[:fill], vals[:fill], count
+
+    def run_buffers(self, lo: int, hi: int) -> tuple[np.ndarray, np.ndarray, int, np.ndarray]:
+        """:meth:`run`, returning the buffers the pairs were written into (own arrays, pairs in the first ``fill``)."""
         n_nodes, limit = self.n_nodes, self.limit
         du_s, dv_s, gu_s, gv_s = self.du_s, self.dv_s, self.gu_s, self.gv_s
         u_ptr, v_ptr, v_order, du_v = self.u_ptr, self.v_ptr, self.v_order, self.du_v
@@ -657,7 +662,7 @@ class _SiteSearch:
             np.take(total, ok, out=vals[fill : fill + c])
             fill += c
             count[i - lo] = c
-        return rows[:fill], vals[:fill], count
+        return rows, vals, fill, count
 
 
 def _search_workers(workers: int | None, n_sites: int, n_nodes: int) -> int:
@@ -749,19 +754,22 @@ def _run_searches(search: _SiteSearch, n_sites: int, workers: int) -> tuple[np.n
             proc.start()
             send.close()
             children[-1] = (proc, recv, fd, lo, hi)
-        rows, vals, count = search.run(cuts[0], cuts[1])
-        fills = [len(rows)] + [_receive(recv) for _, recv, _, _, _ in children]
+        rows, vals, fill0, count = search.run_buffers(cuts[0], cuts[1])
+        fills = [fill0] + [_receive(recv) for _, recv, _, _, _ in children]
         redo = {i: search.run(lo, hi) for i, (_, _, _, lo, hi) in enumerate(children, 1) if fills[i] is None}
         for i, part in redo.items():
             fills[i] = len(part[0])
-        # the pairs of all shares, in site order, each copied once from where it is
+        # the pairs of all shares, in site order: this process's buffers grown in place (realloc moves
+        # big blocks by remapping, so the pairs already there are not copied nor touched again),
+        # each child's pairs copied once after them
         total = sum(fills)  # type: ignore[arg-type]
-        out_rows = np.empty(total, dtype=rows.dtype)
-        out_vals = np.empty(total)
+        out_rows, out_vals = rows, vals
+        del rows, vals
+        out_rows.resize(total, refcheck=False)
+        out_vals.resize(total, refcheck=False)
         out_count = np.empty(n_sites, dtype=np.int64)
-        at = fills[0]
-        out_rows[:at], out_vals[:at], out_count[: cuts[1]] = rows, vals, count
-        del rows, vals, count
+        at = fill0
+        out_count[: cuts[1]] = count
         for i, (_, _, fd, lo, hi) in enumerate(children, 1):
             fill = int(fills[i])  # type: ignore[arg-type]
             if i in redo:
