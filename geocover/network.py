@@ -751,8 +751,10 @@ def _run_searches(search: _SiteSearch, n_sites: int, workers: int) -> tuple[np.n
                 raise
             children.append((None, recv, fd, lo, hi))
             proc = ctx.Process(target=_search_child, args=(send, fd, search, lo, hi), daemon=True)
-            proc.start()
-            send.close()
+            try:
+                proc.start()
+            finally:
+                send.close()  # the child's end: this process keeps only the reading one
             children[-1] = (proc, recv, fd, lo, hi)
         rows, vals, fill0, count = search.run_buffers(cuts[0], cuts[1])
         fills = [fill0] + [_receive(recv) for _, recv, _, _, _ in children]
