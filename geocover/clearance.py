@@ -69,6 +69,9 @@ _MARGIN_REL, _MARGIN_ABS = 1e-9, 1e-6  # slack on bounds for rounding (metres)
 
 T = TypeVar("T")
 
+#: ``screen_zones(grid=...)`` when the caller built no zone grid (one is built if it pays)
+NO_GRID: Any = object()
+
 
 def in_chunks(fn: Callable[[slice], T], n: int, pool: Executor | None, chunk: int | None = None) -> list[T]:
     """``fn`` on consecutive slices of ``range(n)``, in order; in ``pool`` when given."""
@@ -115,6 +118,7 @@ def screen_zones(
     setback: float,
     nearest: bool = True,
     pool: Executor | None = None,
+    grid: Any = NO_GRID,
 ) -> Hits:
     """Which footprints (at ``rows``) are closer than ``setback`` to a zone, and their nearest-zone distance.
 
@@ -133,7 +137,8 @@ def screen_zones(
         return Hits(hit, feature, near)
     query = footprints[rows]
     on_grid = shapely.get_type_id(query) == 0
-    grid = _ZoneGrid.build(geoms, setback) if on_grid.any() else None
+    if grid is NO_GRID:  # not built by the caller (who may pass None: a grid would not pay)
+        grid = ZoneGrid.build(geoms, setback) if on_grid.any() else None
     if grid is None:
         on_grid[:] = False
     trees: dict[str, Any] = {}
@@ -339,7 +344,7 @@ def _pieces(geoms: np.ndarray) -> np.ndarray | None:
 
 
 @dataclass
-class _ZoneGrid:
+class ZoneGrid:
     """Zone segments as numpy arrays, and the zones binned by envelope centre (see the module notes).
 
     Only grid members have their linework here: ``run_x[r], run_y[r]`` are
@@ -366,7 +371,7 @@ class _ZoneGrid:
     other: np.ndarray  # zones not in the grid (big, with many vertices, or collections): GEOS path
 
     @classmethod
-    def build(cls, geoms: np.ndarray, setback: float) -> "_ZoneGrid | None":
+    def build(cls, geoms: np.ndarray, setback: float) -> "ZoneGrid | None":
         """The grid of ``geoms``, or None when it would not pay (then every site takes the GEOS path)."""
         nz = len(geoms)
         coords, owner = shapely.get_coordinates(geoms, return_index=True)

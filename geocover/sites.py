@@ -49,7 +49,7 @@ import shapely
 
 from .crs import as_crs, choose_working_crs, crs_label, local_projected_crs, require_projected
 from .choices import LatticeShape
-from .clearance import Chunks, screen_zones
+from .clearance import NO_GRID, Chunks, ZoneGrid, screen_zones
 from .errors import CRSError, InputError, LayerError, ParameterError
 from .filters import parse_filter
 from .landuse import land_use_shares
@@ -436,8 +436,9 @@ class _ZoneLayer:
     come in the same order as when each layer is read where it is used.
     """
 
-    def __init__(self, rule: Exclusion, crs: "CRS", pool: Executor | None) -> None:
+    def __init__(self, rule: Exclusion, crs: "CRS", pool: Executor | None, points: bool = False) -> None:
         self.rule = rule
+        self.points = points
         self.notes: list[str] = []
         self.error: BaseException | None = None
         try:
@@ -457,12 +458,24 @@ class _ZoneLayer:
         except Exception as error:  # noqa: BLE001 -- re-raised by zones()
             self.error = error
 
-    def zones(self, notes: list[str], pool: Executor | None) -> tuple[np.ndarray, np.ndarray]:
-        """The zone geometries (after the filter, repaired) and their feature ids; the layer's notes go to ``notes``."""
+    def zones(self, notes: list[str], pool: Executor | None) -> tuple[np.ndarray, np.ndarray, Any]:
+        """The zone geometries (after the filter, repaired), their feature ids and, for point sites, their
+        zone grid (:data:`~geocover.clearance.NO_GRID` when not built); the layer's notes go to ``notes``.
+
+        While the pool checks the zones' validity, this thread builds the grid of the zones as they
+        are (instead of waiting): it is what will be screened unless something needs repair.
+        """
         if self.error is not None:
             raise self.error
         notes.extend(self.notes)
-        return _finish_zones(self.rule, self.raw, self.shapes, self.ids, self.invalid(), notes, pool)
+        grid = NO_GRID
+        if self.points:
+            present = ~self.shapes.missing & ~self.shapes.empty & ~self.shapes.nonfinite
+            grid = ZoneGrid.build(self.raw[present], float(self.rule.setback_m))
+        invalid = self.invalid()
+        if invalid.any():  # repaired: not the zones the grid was built for
+            grid = NO_GRID
+        return (*_finish_zones(self.rule, self.raw, self.shapes, self.ids, invalid, notes, pool), grid)
 
 
 _CHECK_CHUNK = 8192  # zones checked per task
@@ -472,7 +485,7 @@ def _exclusion_layer(
     rule: Exclusion, crs: "CRS", notes: list[str], pool: Executor | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
     """The zone geometries (after the filter, repaired) and their feature ids."""
-    return _ZoneLayer(rule, crs, pool).zones(notes, pool)
+    return _ZoneLayer(rule, crs, pool).zones(notes, pool)[:2]
 
 
 def _finish_zones(
@@ -760,7 +773,8 @@ def _screen_sites(
         working = _working_crs(crs, ex, "existing sites")
     cand = _reproject(cand, working, "candidates", notes)
     # with threads, the zone layers are read now and checked while the sites are prepared
-    layers = [_ZoneLayer(rule, working, pool) for rule in rules] if pool is not None else None
+    points = bool((shapely.get_type_id(np.asarray(cand.geometry.array, dtype=object)) == 0).any())
+    layers = [_ZoneLayer(rule, working, pool, points) for rule in rules] if pool is not None else None
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
     if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
@@ -834,9 +848,12 @@ def _screen_sites(
     rows = np.flatnonzero(usable)
     zones: dict[str, np.ndarray] = {}
     for j, rule in enumerate(rules):
-        geoms, ids = layers[j].zones(notes, pool) if layers is not None else _exclusion_layer(rule, working, notes)
+        if layers is not None:
+            geoms, ids, grid = layers[j].zones(notes, pool)
+        else:
+            (geoms, ids), grid = _exclusion_layer(rule, working, notes), NO_GRID
         zones[str(rule.name)] = geoms
-        hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool)
+        hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool, grid=grid)
         nearest = np.minimum(nearest, hits.nearest)
         reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
 

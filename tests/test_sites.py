@@ -209,16 +209,24 @@ def test_geographic_candidates_get_a_local_working_crs(world):
     assert record.crs == "EPSG:32626"
 
 
-def test_invalid_zone_polygons_are_repaired_and_counted(caplog):
+@pytest.mark.parametrize("threads", [1, 2])
+def test_invalid_zone_polygons_are_repaired_and_counted(caplog, monkeypatch, threads):
+    from geocover import clearance
+
+    built = []  # the zones each zone grid is built from
+    real_build = clearance.ZoneGrid.build.__func__
+    monkeypatch.setattr(clearance.ZoneGrid, "build", classmethod(lambda cls, geoms, setback: built.append(geoms) or real_build(cls, geoms, setback)))
     bowtie = Polygon([(0, 0), (100, 100), (100, 0), (0, 100)])  # self-intersecting
     assert not bowtie.is_valid
     zones = gpd.GeoDataFrame(geometry=[bowtie], crs=CRS)
     cands = gpd.GeoDataFrame(geometry=[Point(20, 50), Point(50, 20), Point(200, 50)], crs=CRS)
     with caplog.at_level(logging.WARNING, logger="geocover.sites"):
-        _, record = screen_sites(cands, exclude=[Exclusion(zones, name="bowtie")])
+        _, record = screen_sites(cands, exclude=[Exclusion(zones, name="bowtie")], threads=threads)
     # (20, 50) is in the left triangle of the repaired bow tie, (50, 20) in neither triangle
     assert record.verdict.tolist() == ["excluded", "kept", "kept"]
     assert any("repaired 1 invalid geometry" in note for note in record.notes)
+    # with threads a grid is built ahead from the zones as read; it must not be the one screened with
+    assert len(built) == threads and shapely.is_valid(built[-1]).all()
 
 
 def test_invalid_candidates_are_recorded_not_dropped():
