@@ -32,6 +32,42 @@ def covered_weight(mat: sp.csr_matrix, weight: np.ndarray, chosen: np.ndarray) -
     return float(np.asarray(weight)[hit].sum())
 
 
+class _Opening:
+    """State of a greedy run: what is uncovered, each column's uncovered weight, which columns may still open.
+
+    :meth:`open` is the one step both greedy heuristics share.
+    """
+
+    def __init__(self, mat: sp.csr_matrix, weight: np.ndarray, allowed: np.ndarray | None, conflicts: sp.csr_matrix | None) -> None:
+        n, m = mat.shape
+        self.mat, self.weight, self.conflicts = mat, weight, conflicts
+        self.csc = sp.csc_matrix(mat)
+        self.uncovered = np.ones(n, dtype=bool)
+        self.gain = np.asarray(self.csc.T @ weight).ravel() if n else np.zeros(m)  # uncovered weight per column
+        self.ok = np.ones(m, dtype=bool) if allowed is None else np.asarray(allowed, dtype=bool).copy()
+        self.chosen: list[int] = []
+
+    def open(self, j: int) -> float:
+        """Open column ``j``, close the columns it conflicts with; return the weight it newly covers."""
+        csc, conflicts = self.csc, self.conflicts
+        self.chosen.append(j)
+        self.ok[j] = False
+        if conflicts is not None:
+            self.ok[conflicts.indices[conflicts.indptr[j] : conflicts.indptr[j + 1]]] = False
+        rows = csc.indices[csc.indptr[j] : csc.indptr[j + 1]]
+        rows = rows[self.uncovered[rows]]
+        self.uncovered[rows] = False
+        if len(rows) == 0:
+            return 0.0
+        sub = self.mat[rows]
+        w = self.weight[rows]
+        self.gain -= np.bincount(sub.indices, weights=np.repeat(w, np.diff(sub.indptr)), minlength=len(self.gain))
+        return float(w.sum())
+
+    def result(self) -> np.ndarray:
+        return np.array(sorted(self.chosen), dtype=np.int64)
+
+
 def greedy_cover(
     mat: sp.csr_matrix,
     cost: np.ndarray,
@@ -58,36 +94,22 @@ def greedy_cover(
         Stop once this much weight is covered (a coverage target).  Default:
         every row.
     """
-    n, m = mat.shape
+    n = mat.shape[0]
     cost = np.asarray(cost, dtype=np.float64)
-    csc = sp.csc_matrix(mat)
     w = np.ones(n) if weight is None else np.asarray(weight, dtype=np.float64)
     every_row = need is None
-    uncovered = np.ones(n, dtype=bool)
-    gain = np.asarray(csc.T @ w).ravel()  # uncovered weight per column
-    ok = np.ones(m, dtype=bool) if allowed is None else np.asarray(allowed, dtype=bool).copy()
-    chosen: list[int] = []
+    state = _Opening(mat, w, allowed, conflicts)
     got = 0.0
-    while uncovered.any() if every_row else got < float(need):
-        useful = ok & (gain > 1e-12)
-        score = np.where(useful, gain / np.maximum(cost, _EPS), -1.0)
+    while state.uncovered.any() if every_row else got < float(need):
+        useful = state.ok & (state.gain > 1e-12)
+        score = np.where(useful, state.gain / np.maximum(cost, _EPS), -1.0)
         # zero-cost columns that cover something come first
         score = np.where(useful & (cost <= 0), np.inf, score)
         j = int(np.argmax(score))
         if score[j] <= 0:
             return None
-        chosen.append(j)
-        ok[j] = False
-        if conflicts is not None:
-            ok[conflicts.indices[conflicts.indptr[j] : conflicts.indptr[j + 1]]] = False
-        rows = csc.indices[csc.indptr[j] : csc.indptr[j + 1]]
-        rows = rows[uncovered[rows]]
-        uncovered[rows] = False
-        got += float(w[rows].sum())
-        if len(rows):
-            sub = mat[rows]
-            gain -= np.bincount(sub.indices, weights=np.repeat(w[rows], np.diff(sub.indptr)), minlength=m)
-    return np.array(sorted(chosen), dtype=np.int64)
+        got += state.open(j)
+    return state.result()
 
 
 def prune_cover(mat: sp.csr_matrix, cost: np.ndarray, chosen: np.ndarray, *, removable: np.ndarray | None = None) -> np.ndarray:
@@ -134,36 +156,20 @@ def greedy_most(
     weight); with ``budget`` opens columns by weight gained per unit of
     ``resource`` while they fit.  ``start`` columns are open from the start.
     """
-    n, m = mat.shape
+    m = mat.shape[1]
     weight = np.asarray(weight, dtype=np.float64)
     res = np.ones(m) if resource is None else np.asarray(resource, dtype=np.float64)
-    csc = sp.csc_matrix(mat)
-    uncovered = np.ones(n, dtype=bool)
-    gain = np.asarray(csc.T @ weight).ravel() if n else np.zeros(m)
-    ok = np.ones(m, dtype=bool) if allowed is None else np.asarray(allowed, dtype=bool).copy()
-    chosen: list[int] = []
-
-    def take(j: int) -> None:
-        nonlocal gain
-        chosen.append(j)
-        ok[j] = False
-        if conflicts is not None:
-            ok[conflicts.indices[conflicts.indptr[j] : conflicts.indptr[j + 1]]] = False
-        rows = csc.indices[csc.indptr[j] : csc.indptr[j + 1]]
-        rows = rows[uncovered[rows]]
-        uncovered[rows] = False
-        if len(rows):
-            sub = mat[rows]
-            gain = gain - np.bincount(sub.indices, weights=np.repeat(weight[rows], np.diff(sub.indptr)), minlength=m)
-
+    state = _Opening(mat, weight, allowed, conflicts)
     for j in [] if start is None else list(np.asarray(start, dtype=np.int64)):
-        take(int(j))
+        state.open(int(j))
+    chosen = state.chosen
     used = 0.0 if sites is None else float(sum(1 for j in chosen if res[j] > 0))
     spent = float(res[chosen].sum()) if chosen else 0.0
     while True:
+        ok, gain = state.ok, state.gain
         free = ok & (res <= 0) & (gain > _EPS)
         if free.any():
-            take(int(np.argmax(np.where(free, gain, -1.0))))
+            state.open(int(np.argmax(np.where(free, gain, -1.0))))
             continue
         if sites is not None:
             if used >= sites:
@@ -176,10 +182,10 @@ def greedy_most(
         j = int(np.argmax(score))
         if score[j] <= 0:
             break
-        take(j)
+        state.open(j)
         used += 1
         spent += res[j]
-    return np.array(sorted(chosen), dtype=np.int64)
+    return state.result()
 
 
 def swap_most(
