@@ -157,7 +157,7 @@ def run_network(method: str, edges: int, n_sites: int, n_demand: int, limit_s: f
         dsnap, ssnap = net.snap(dem_xy, 500.0), net.snap(site_xy, 500.0)
         v_off = 5.0 / 3.6
         t0 = time.perf_counter()
-        pairs, direct = nw._network_pairs(net, dsnap, dsnap.distance / v_off, ssnap, ssnap.distance / v_off, limit_s)
+        pairs, direct = nw._network_pairs(net, ssnap, ssnap.distance / v_off, limit_s, lambda: (dsnap, dsnap.distance / v_off), n_demand)[:2]
         out = {"pairs": int(nw._combine(n_demand, n_sites, pairs, direct).nnz)}
     elif method == "networkx":
         import networkx as nx

@@ -46,9 +46,9 @@ from __future__ import annotations
 
 import logging
 import math
-import mmap
 import multiprocessing as mp
 import os
+import pickle
 import sys
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, Mapping
@@ -568,37 +568,46 @@ def _runs(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return edges[0::2], edges[1::2]
 
 
-def _grown(a: np.ndarray, cap: int, fill: int) -> np.ndarray:
-    """A buffer of ``cap`` entries holding the first ``fill`` entries of ``a``."""
-    out = np.empty(cap, dtype=a.dtype)
-    out[:fill] = a[:fill]
-    return out
+class _PairBuffer:
+    """Covering pairs written straight into buffers that grow to the size the sites so far predict.
 
+    Touching fresh memory is slow, so there are no per-site pieces and no
+    final concatenation; growing reallocates (``mremap`` for big blocks).
+    """
 
-# Work below which the site searches run in this process: forking costs a few
-# milliseconds, a search of a 10,000-node graph about 0.1 ms.
-_FORK_MIN_WORK = 5_000_000  # sites x graph nodes
-_MAX_AUTO_WORKERS = 4
+    def __init__(self, row_dtype: Any, most: int, sites: int) -> None:
+        self.most, self.sites = most, max(sites, 1)
+        cap = min(most, 1 << 20)
+        self.rows = np.empty(cap, dtype=row_dtype)
+        self.vals = np.empty(cap)
+        self.fill = 0
+        self.done = 0
+
+    def add(self, rows_s: np.ndarray, pick: np.ndarray, total: np.ndarray, ok: np.ndarray) -> int:
+        """Append ``rows_s[pick]`` with times ``total[ok]`` (one site's pairs); returns how many."""
+        c, fill = len(ok), self.fill
+        self.done += 1
+        if fill + c > len(self.rows):
+            cap = min(self.most, max(2 * len(self.rows), int(1.1 * (fill + c) / self.done * self.sites), fill + c))
+            self.rows.resize(cap, refcheck=False)
+            self.vals.resize(cap, refcheck=False)
+        np.take(rows_s, pick, out=self.rows[fill : fill + c])
+        np.take(total, ok, out=self.vals[fill : fill + c])
+        self.fill = fill + c
+        return c
 
 
 @dataclass(frozen=True)
-class _SiteSearch:
-    """Everything one site's bounded search needs, so that sites can be searched in any process.
+class _DemandIndex:
+    """Snapped demand listed by the ends of its segments, for turning a site's node times into pairs.
 
     Demand is listed by the first end of its segment (``du_s``, sorted, with
     ``u_ptr`` per node) and, through ``v_order``, by the other end
     (``v_ptr``); ``gu_s``/``gv_s`` are the times from each end to the point,
     its off-road leg included, and ``pu_s``/``pv_s`` the intersection
-    penalties inside them.
+    penalties inside them; ``rows_s`` the demand rows.
     """
 
-    graph: sp.csr_matrix
-    n_nodes: int
-    limit: float
-    budget: np.ndarray
-    s_node: np.ndarray
-    s_off: np.ndarray
-    n_demand: int
     du_s: np.ndarray
     dv_s: np.ndarray
     gu_s: np.ndarray
@@ -611,58 +620,106 @@ class _SiteSearch:
     v_order: np.ndarray
     du_v: np.ndarray
 
+    @property
+    def n(self) -> int:
+        return len(self.rows_s)
+
+    @classmethod
+    def build(cls, net: RoadNetwork, dsnap: Snap, d_off: np.ndarray, row_dtype: Any) -> "_DemandIndex":
+        n_nodes = net.n_nodes
+        d_idx = np.flatnonzero(dsnap.snapped)
+        du, dv, d_from_u, d_from_v, d_pen_u, d_pen_v = _legs(net, dsnap, d_idx)
+        order = np.argsort(du, kind="stable")
+        du_s, dv_s = du[order], dv[order]
+        off_s = d_off[d_idx][order]
+        u_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
+        np.cumsum(np.bincount(du_s, minlength=n_nodes), out=u_ptr[1:])
+        v_order = np.argsort(dv_s, kind="stable")
+        v_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
+        np.cumsum(np.bincount(dv_s, minlength=n_nodes), out=v_ptr[1:])
+        return cls(
+            du_s, dv_s, d_from_u[order] + off_s, d_from_v[order] + off_s, d_pen_u[order], d_pen_v[order],
+            d_idx[order].astype(row_dtype), u_ptr, v_ptr, v_order, du_s[v_order],
+        )
+
+
+# Work below which the site searches run in this process: forking costs a few
+# milliseconds, a search of a 10,000-node graph about 0.1 ms.
+_FORK_MIN_WORK = 5_000_000  # sites x graph nodes
+_MAX_AUTO_WORKERS = 4
+
+
+@dataclass(frozen=True)
+class _SiteSearch:
+    """Everything one site's bounded search needs, so that sites can be searched in any process.
+
+    ``demand`` may come later than the rest (:meth:`with_demand`): a search
+    needs only the graph, the pairs need the demand.
+    """
+
+    graph: sp.csr_matrix
+    n_nodes: int
+    limit: float
+    budget: np.ndarray
+    s_node: np.ndarray
+    s_off: np.ndarray
+    row_dtype: Any
+    n_demand: int  # demand points in all (an upper bound of any site's pairs)
+    demand: _DemandIndex | None = None
+
+    def with_demand(self, demand: _DemandIndex) -> "_SiteSearch":
+        return _SiteSearch(self.graph, self.n_nodes, self.limit, self.budget, self.s_node, self.s_off,
+                           self.row_dtype, self.n_demand, demand)
+
+    def reach(self, i: int) -> np.ndarray:
+        """Node times of site ``i`` (inf beyond its budget)."""
+        return dijkstra(self.graph, directed=True, indices=self.n_nodes + i, limit=float(self.budget[i]))[: self.n_nodes]
+
+    def add_pairs(self, out: _PairBuffer, i: int, t: np.ndarray) -> int:
+        """Append site ``i``'s covering pairs, from its node times ``t``, to ``out``; returns how many."""
+        dem = self.demand
+        assert dem is not None
+        reached = t <= float(self.budget[i])
+        # runs of consecutive reached nodes (nodes are numbered in coordinate order, so runs are long)
+        first, stop = _runs(reached)
+        if len(first) == 0:
+            out.done += 1
+            return 0
+        # demand whose segment starts at a reached node, then that whose segment only ends at one
+        at_v = _spans(dem.v_ptr[first], dem.v_ptr[stop])
+        j = np.concatenate([_spans(dem.u_ptr[first], dem.u_ptr[stop]), dem.v_order[at_v[~reached[dem.du_v[at_v]]]]])
+        du, dv = dem.du_s[j], dem.dv_s[j]
+        via_u = t[du] + dem.gu_s[j]
+        via_v = t[dv] + dem.gv_s[j]
+        start = int(self.s_node[i])
+        if start >= 0:
+            via_u -= np.where(du == start, dem.pu_s[j], 0.0)
+            via_v -= np.where(dv == start, dem.pv_s[j], 0.0)
+        total = np.minimum(via_u, via_v, out=via_u)
+        total += self.s_off[i]
+        ok = np.flatnonzero(total <= self.limit)
+        return out.add(dem.rows_s, j[ok], total, ok)
+
+    def buffer(self, sites: int, at_most: int | None = None) -> _PairBuffer:
+        """A pair buffer sized for about ``sites`` sites, of at most ``at_most`` (default: ``sites``)."""
+        return _PairBuffer(self.row_dtype, max(self.n_demand, 1) * max(sites if at_most is None else at_most, 1), sites)
+
     def run(self, lo: int, hi: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Covering pairs of sites ``lo .. hi - 1`` (positions in the searched sites).
 
         Returns ``(rows, seconds, count)``: the demand rows of each site in
         turn (unordered within a site), their times, and how many each site has.
         """
-        rows, vals, fill, count = self.run_buffers(lo, hi)
-        return rows[:fill], vals[:fill], count
+        out, count = self.run_buffers(lo, hi)
+        return out.rows[: out.fill], out.vals[: out.fill], count
 
-    def run_buffers(self, lo: int, hi: int) -> tuple[np.ndarray, np.ndarray, int, np.ndarray]:
-        """:meth:`run`, returning the buffers the pairs were written into (own arrays, pairs in the first ``fill``)."""
-        n_nodes, limit = self.n_nodes, self.limit
-        du_s, dv_s, gu_s, gv_s = self.du_s, self.dv_s, self.gu_s, self.gv_s
-        u_ptr, v_ptr, v_order, du_v = self.u_ptr, self.v_ptr, self.v_order, self.du_v
-        k = hi - lo
-        count = np.zeros(k, dtype=np.int64)
-        # written straight into buffers that grow to the size the sites so far predict
-        # (touching fresh memory is slow, so no per-site pieces and no final concatenation)
-        most = self.n_demand * k
-        cap = min(most, 1 << 20)
-        rows = np.empty(cap, dtype=self.rows_s.dtype)
-        vals = np.empty(cap)
-        fill = 0
+    def run_buffers(self, lo: int, hi: int, out: _PairBuffer | None = None) -> tuple[_PairBuffer, np.ndarray]:
+        """:meth:`run`, into (and returning) the buffer ``out`` (a new one by default), with the counts."""
+        out = self.buffer(hi - lo) if out is None else out
+        count = np.zeros(hi - lo, dtype=np.int64)
         for i in range(lo, hi):
-            bud = float(self.budget[i])
-            t = dijkstra(self.graph, directed=True, indices=n_nodes + i, limit=bud)[:n_nodes]
-            reached = t <= bud
-            # runs of consecutive reached nodes (nodes are numbered in coordinate order, so runs are long)
-            first, stop = _runs(reached)
-            if len(first) == 0:
-                continue
-            # demand whose segment starts at a reached node, then that whose segment only ends at one
-            at_v = _spans(v_ptr[first], v_ptr[stop])
-            j = np.concatenate([_spans(u_ptr[first], u_ptr[stop]), v_order[at_v[~reached[du_v[at_v]]]]])
-            via_u = t[du_s[j]] + gu_s[j]
-            via_v = t[dv_s[j]] + gv_s[j]
-            start = int(self.s_node[i])
-            if start >= 0:
-                via_u -= np.where(du_s[j] == start, self.pu_s[j], 0.0)
-                via_v -= np.where(dv_s[j] == start, self.pv_s[j], 0.0)
-            total = np.minimum(via_u, via_v)
-            total += self.s_off[i]
-            ok = np.flatnonzero(total <= limit)
-            c = len(ok)
-            if fill + c > cap:
-                cap = min(most, max(2 * cap, int(1.1 * (fill + c) / (i - lo + 1) * k)))
-                rows, vals = _grown(rows, cap, fill), _grown(vals, cap, fill)
-            np.take(self.rows_s, j[ok], out=rows[fill : fill + c])
-            np.take(total, ok, out=vals[fill : fill + c])
-            fill += c
-            count[i - lo] = c
-        return rows, vals, fill, count
+            count[i - lo] = self.add_pairs(out, i, self.reach(i))
+        return out, count
 
 
 def _search_workers(workers: int | None, n_sites: int, n_nodes: int) -> int:
@@ -675,19 +732,118 @@ def _search_workers(workers: int | None, n_sites: int, n_nodes: int) -> int:
     return max(1, min(cpus, _MAX_AUTO_WORKERS, n_sites // 16))
 
 
-def _search_child(conn: Any, fd: int, search: _SiteSearch, lo: int, hi: int) -> None:  # pragma: no cover - forked child
+def _pwrite_all(fd: int, arrays: list[np.ndarray], offset: int = 0) -> int:
+    """Write the arrays' bytes one after another at ``offset``; returns the end offset."""
+    views = [memoryview(a).cast("B") for a in arrays if a.nbytes]
+    while views:
+        done = os.pwritev(fd, views[:_IOV_MAX], offset)
+        offset += done
+        while views and done >= len(views[0]):
+            done -= len(views[0])
+            views.pop(0)
+        if views and done:
+            views[0] = views[0][done:]
+    return offset
+
+
+def _pread_into(fd: int, arrays: list[np.ndarray], offset: int = 0) -> int:
+    """Fill the arrays (contiguous, writable) from the bytes at ``offset``; returns the end offset."""
+    views = [memoryview(a).cast("B") for a in arrays if a.nbytes]
+    while views:
+        done = os.preadv(fd, views[:_IOV_MAX], offset)
+        if done == 0:
+            raise EOFError("network coverage: a search process handed back fewer bytes than it announced")
+        offset += done
+        while views and done >= len(views[0]):
+            done -= len(views[0])
+            views.pop(0)
+        if views and done:
+            views[0] = views[0][done:]
+    return offset
+
+
+_IOV_MAX = 512
+
+
+def _claim(claims: Any, size: int, front: bool) -> tuple[int, int] | None:
+    """Take the next ``size`` sites of the shared range ``claims[0] .. claims[1] - 1``, from its front or back."""
+    with claims.get_lock():
+        lo, hi = claims[0], claims[1]
+        if hi <= lo:
+            return None
+        if front:
+            claims[0] = min(lo + size, hi)
+            return lo, claims[0]
+        claims[1] = max(hi - size, lo)
+        return claims[1], hi
+
+
+def _search_child(conn: Any, out_fd: int, dem_fd: int, ready: Any, claims: Any, block: int,
+                  search: _SiteSearch, lo: int, hi: int) -> None:  # pragma: no cover - forked child
+    """Search sites of ``lo .. hi - 1`` in a forked child and hand their pairs back through ``out_fd``.
+
+    With ``claims`` the child takes blocks from the back of the range it
+    shares with the parent (which takes them from the front); without, it
+    searches the whole range.  It starts before the demand is known: node
+    times are kept (reached nodes only) until the parent has written the
+    demand to ``dem_fd`` and set ``ready``.
+    """
     try:
-        rows, vals, count = search.run(lo, hi)
-        # the pairs go back through shared memory (a memfd the parent made before the fork): one copy each way
-        size = count.nbytes + rows.nbytes + vals.nbytes
-        os.ftruncate(fd, size)
-        if size:
-            with mmap.mmap(fd, size) as mm:
-                at = 0
-                for arr in (count, rows, vals):
-                    np.frombuffer(mm, dtype=arr.dtype, count=len(arr), offset=at)[:] = arr
-                    at += arr.nbytes
-        conn.send(("ok", len(rows)))
+        parent = os.getppid()
+        count = np.zeros(hi - lo, dtype=np.int64)
+        at = np.zeros(hi - lo, dtype=np.int64)
+        out = search.buffer(hi - lo)
+        waiting: list[tuple[int, np.ndarray, np.ndarray]] = []
+        scratch = np.empty(0)
+
+        def add(i: int, t: np.ndarray) -> None:
+            at[i - lo] = out.fill
+            count[i - lo] = search.add_pairs(out, i, t)
+
+        def take_demand() -> None:
+            nonlocal search, scratch
+            search = search.with_demand(_read_demand(dem_fd))
+            scratch = np.full(search.n_nodes, np.inf)
+            for i, nodes, times in waiting:
+                scratch[nodes] = times
+                add(i, scratch)
+                scratch[nodes] = np.inf
+            waiting.clear()
+
+        # the shared range from its back, block by block (the parent takes it from the front), or the whole share
+        spans = iter(lambda: _claim(claims, block, front=False), None) if claims is not None else iter([(lo, hi)])
+        first = hi
+        for a, b in spans:
+            first = a
+            for i in range(a, b):
+                t = search.reach(i)
+                if search.demand is None and ready.is_set():
+                    take_demand()
+                if search.demand is None:
+                    nodes = np.flatnonzero(t <= float(search.budget[i]))
+                    waiting.append((i, nodes, t[nodes]))
+                else:
+                    add(i, t)
+        while search.demand is None:
+            if ready.wait(1.0):
+                take_demand()
+            elif os.getppid() != parent:
+                return  # the parent is gone: nobody wants the pairs
+        # pairs in site order: each site's pairs are contiguous, sites were searched block by block
+        k = hi - first
+        starts, counts = at[first - lo :], count[first - lo :]
+        pieces: list[tuple[int, int]] = []
+        for s, c in zip(starts.tolist(), counts.tolist()):
+            if c == 0:
+                continue
+            if pieces and pieces[-1][1] == s:
+                pieces[-1] = (pieces[-1][0], s + c)
+            else:
+                pieces.append((s, s + c))
+        end = _pwrite_all(out_fd, [counts], 0)
+        end = _pwrite_all(out_fd, [out.rows[a:b] for a, b in pieces], end)
+        _pwrite_all(out_fd, [out.vals[a:b] for a, b in pieces], end)
+        conn.send(("ok", first, int(counts.sum()), k))
     except BaseException as exc:  # report, never leave the parent waiting
         try:
             conn.send(("error", repr(exc)))
@@ -697,116 +853,168 @@ def _search_child(conn: Any, fd: int, search: _SiteSearch, lo: int, hi: int) -> 
         conn.close()
 
 
-def _receive(conn: Any) -> int | None:
-    """How many pairs a child found, or None when it failed (the parent then does its share)."""
+def _write_demand(fd: int, demand: _DemandIndex) -> None:
+    blob = pickle.dumps(demand, protocol=pickle.HIGHEST_PROTOCOL)
+    _pwrite_all(fd, [np.array([len(blob)], dtype=np.int64), np.frombuffer(blob, dtype=np.uint8)], 0)
+
+
+def _read_demand(fd: int) -> _DemandIndex:
+    size = np.zeros(1, dtype=np.int64)
+    _pread_into(fd, [size], 0)
+    blob = bytearray(int(size[0]))
+    _pread_into(fd, [np.frombuffer(blob, dtype=np.uint8)], 8)
+    return pickle.loads(blob)
+
+
+def _receive(conn: Any) -> tuple[int, int, int] | None:
+    """``(first site, pairs, sites)`` a child searched, or None when it failed (the parent then does its share)."""
     try:
-        status, fill = conn.recv()
+        message = conn.recv()
     except (EOFError, OSError) as exc:
         logger.warning("network coverage: a search process ended early (%r); searching its sites here", exc)
         return None
-    if status != "ok":
-        logger.warning("network coverage: a search process failed (%s); searching its sites here", fill)
+    if message[0] != "ok":
+        logger.warning("network coverage: a search process failed (%s); searching its sites here", message[1])
         return None
-    return int(fill)
+    return int(message[1]), int(message[2]), int(message[3])
 
 
-def _copy_shared(fd: int, count: np.ndarray, rows: np.ndarray, vals: np.ndarray) -> None:
-    """Copy a child's ``count``, ``rows`` and ``vals`` (laid out in that order) out of its memfd into the given arrays."""
-    size = count.nbytes + rows.nbytes + vals.nbytes
-    if size == 0:
-        return
-    with mmap.mmap(fd, size, access=mmap.ACCESS_READ) as mm:
-        at = 0
-        for arr in (count, rows, vals):
-            view = np.frombuffer(mm, dtype=arr.dtype, count=len(arr), offset=at)
-            arr[:] = view
-            at += arr.nbytes
-            del view
+def _shares(budget: np.ndarray, workers: int) -> list[int]:
+    """Cuts of the sites into ``workers`` contiguous shares of about equal work (an area growing with the budget squared)."""
+    n = len(budget)
+    work = np.cumsum(np.maximum(budget, 0.0) ** 2)
+    cuts = [0, *np.searchsorted(work, work[-1] * np.arange(1, workers) / workers).tolist(), n]
+    return np.maximum.accumulate(np.minimum(cuts, n)).tolist()
 
 
-def _run_searches(search: _SiteSearch, n_sites: int, workers: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """All sites' searches, in ``workers`` processes (this one included); results in site order.
+def _run_searches(
+    search: _SiteSearch, workers: int, demand_side: Any
+) -> tuple[_SiteSearch, np.ndarray, np.ndarray, np.ndarray]:
+    """All sites' searches, in ``workers`` processes (this one included); pairs in site order.
 
-    The sites are cut into contiguous shares; this process searches the first
-    while forked children search the others (they inherit the graph, nothing
-    is pickled) and hand back their pairs in shared memory.  scipy's Dijkstra
-    holds the GIL, so threads would not run in parallel.  A child that fails
-    has its share searched here, so the result never depends on the workers.
+    ``demand_side()`` makes the demand (a :class:`_DemandIndex`); with
+    workers it runs here while forked children already search: they
+    inherit the graph (nothing is pickled), keep their node times until the
+    demand is handed to them, and hand their pairs back in shared memory
+    (memfds).  The first child and this process share the first two shares
+    of the sites, the child taking blocks from the back and this process
+    from the front once its demand is made, so that the demand's cost is
+    balanced out; the other children search a share each.  scipy's Dijkstra
+    holds the GIL, so threads would not run in parallel.  A child that
+    fails has its sites searched here, so the result never depends on the
+    workers.
+
+    Returns the search with its demand, and ``(rows, seconds, count)``.
     """
+    n_sites = len(search.budget)
     if workers <= 1 or n_sites < 2 or "fork" not in mp.get_all_start_methods() or not hasattr(os, "memfd_create"):
-        return search.run(0, n_sites)
+        search = search.with_demand(demand_side())
+        return (search, *search.run(0, n_sites))
     ctx = mp.get_context("fork")
-    # contiguous shares of about equal work: a search reaches an area growing with the square of its budget
-    work = np.cumsum(np.maximum(search.budget, 0.0) ** 2)
-    cuts = [0, *np.searchsorted(work, work[-1] * np.arange(1, workers) / workers).tolist(), n_sites]
-    cuts = np.maximum.accumulate(np.minimum(cuts, n_sites)).tolist()
-    children: list[tuple[Any, Any, int, int, int]] = []
+    cuts = _shares(search.budget, workers)
+    shared_end = cuts[2] if workers > 2 else n_sites
+    claims = ctx.Array("q", [0, shared_end])
+    ready = ctx.Event()
+    block = max(1, min(8, shared_end // 32))
+    dem_fd = os.memfd_create("geocover-demand", os.MFD_CLOEXEC)
+    # (process, pipe, memfd, lo, hi): the first child shares 0 .. shared_end with this process
+    children: list[tuple[Any, Any, int, int, int, bool]] = []
+    ranges = [(0, shared_end, True)] + [(lo, hi, False) for lo, hi in zip(cuts[2:-1], cuts[3:])]
+    ok = False
     try:
-        for lo, hi in zip(cuts[1:-1], cuts[2:]):
+        for lo, hi, shared in ranges:
+            if hi <= lo:
+                continue
             fd = os.memfd_create("geocover-search", os.MFD_CLOEXEC)
             try:
                 recv, send = ctx.Pipe(duplex=False)
             except BaseException:
                 os.close(fd)
                 raise
-            children.append((None, recv, fd, lo, hi))
-            proc = ctx.Process(target=_search_child, args=(send, fd, search, lo, hi), daemon=True)
+            children.append((None, recv, fd, lo, hi, shared))
+            proc = ctx.Process(target=_search_child, daemon=True,
+                               args=(send, fd, dem_fd, ready, claims if shared else None, block, search, lo, hi))
             try:
                 proc.start()
             finally:
                 send.close()  # the child's end: this process keeps only the reading one
-            children[-1] = (proc, recv, fd, lo, hi)
-        rows, vals, fill0, count = search.run_buffers(cuts[0], cuts[1])
-        fills = [fill0] + [_receive(recv) for _, recv, _, _, _ in children]
-        redo = {i: search.run(lo, hi) for i, (_, _, _, lo, hi) in enumerate(children, 1) if fills[i] is None}
-        for i, part in redo.items():
-            fills[i] = len(part[0])
-        # the pairs of all shares, in site order: this process's buffers grown in place (realloc moves
-        # big blocks by remapping, so the pairs already there are not copied nor touched again),
-        # each child's pairs copied once after them
-        total = sum(fills)  # type: ignore[arg-type]
-        out_rows, out_vals = rows, vals
-        del rows, vals
-        out_rows.resize(total, refcheck=False)
-        out_vals.resize(total, refcheck=False)
-        out_count = np.empty(n_sites, dtype=np.int64)
+            children[-1] = (proc, recv, fd, lo, hi, shared)
+        search = search.with_demand(demand_side())
+        if search.demand.n == 0:  # type: ignore[union-attr]  # nothing to cover: the children are stopped, not waited for
+            return search, np.zeros(0, search.row_dtype), np.zeros(0), np.zeros(n_sites, dtype=np.int64)
+        _write_demand(dem_fd, search.demand)  # type: ignore[arg-type]
+        ready.set()
+        out = search.buffer(max(shared_end // 2, 1), shared_end)
+        counts: list[np.ndarray] = []
+        while (span := _claim(claims, block, front=True)) is not None:
+            counts.append(search.run_buffers(*span, out=out)[1])
+        meet = int(claims[0])
+        got = [_receive(child[1]) for child in children]
+        # a failed child's sites: from where the first child's claims began, or its whole share
+        redo: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
+        for c, ((_, _, _, lo, hi, shared), g) in enumerate(zip(children, got)):
+            if g is None:
+                first = meet if shared else lo
+                redo[c] = search.run(first, hi)
+                got[c] = (first, len(redo[c][0]), hi - first)
+        # this process's buffers grown in place (realloc moves big blocks by remapping, so the pairs
+        # already there are not copied nor touched again), each child's pairs read once after them
+        fill0 = out.fill
+        total = fill0 + sum(g[1] for g in got)  # type: ignore[index]
+        rows, vals = out.rows, out.vals
+        del out
+        rows.resize(total, refcheck=False)
+        vals.resize(total, refcheck=False)
+        count = np.empty(n_sites, dtype=np.int64)
+        count[:meet] = np.concatenate(counts) if counts else np.zeros(0, np.int64)
         at = fill0
-        out_count[: cuts[1]] = count
-        for i, (_, _, fd, lo, hi) in enumerate(children, 1):
-            fill = int(fills[i])  # type: ignore[arg-type]
-            if i in redo:
-                out_rows[at : at + fill], out_vals[at : at + fill], out_count[lo:hi] = redo.pop(i)
+        for c, (_, _, fd, lo, hi, shared) in enumerate(children):
+            first, fill, k = got[c]  # type: ignore[misc]
+            if first + k != hi or (shared and first != meet):
+                raise RuntimeError(f"network coverage: a search process handed back sites {first}..{first + k}, not ..{hi}")
+            if c in redo:
+                rows[at : at + fill], vals[at : at + fill], count[first:hi] = redo.pop(c)
             else:
-                _copy_shared(fd, out_count[lo:hi], out_rows[at : at + fill], out_vals[at : at + fill])
+                end = _pread_into(fd, [count[first:hi]], 0)
+                end = _pread_into(fd, [rows[at : at + fill]], end)
+                _pread_into(fd, [vals[at : at + fill]], end)
             at += fill
-    finally:  # also on Ctrl-C: no child is left searching
-        for proc, recv, fd, _, _ in children:
+        ok = True
+    finally:  # also on Ctrl-C or a failed demand: no child is left searching
+        for proc, recv, fd, *_ in children:
             recv.close()
             os.close(fd)
             if proc is not None and proc.is_alive():
-                proc.join(0.5)
+                if ok:
+                    proc.join(0.5)
                 if proc.is_alive():
                     proc.kill()
                     proc.join(1)
+        os.close(dem_fd)
     logger.debug("network coverage: %d sites searched in %d processes", n_sites, workers)
-    return out_rows, out_vals, out_count
+    return search, rows, vals, count
 
 
 def _network_pairs(
     net: RoadNetwork,
-    dsnap: Snap,
-    d_off: np.ndarray,
     ssnap: Snap,
     s_off: np.ndarray,
     limit: float,
+    demand: Any,
+    n_demand: int,
     workers: int | None = None,
-) -> tuple[tuple[np.ndarray, np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray]]:
+) -> tuple[tuple[np.ndarray, np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray], Snap, np.ndarray]:
     """Covering pairs through the network and along a site's own segment.
 
-    Returns ``((rows, colptr, seconds), (rows, cols, seconds))``: the first
-    is a CSC pattern (demand rows of each site in turn, ``colptr`` of
-    length ``m + 1``, rows unordered within a site), the second the direct
-    legs along the site's own segment, to be merged by minimum.
+    ``demand()`` snaps the ``n_demand`` demand points, returning
+    ``(snap, off-road seconds)``; it is called once, while forked
+    processes already search from the sites when there are ``workers``.
+
+    Returns ``((rows, colptr, seconds), (rows, cols, seconds), snap,
+    off-road seconds)``: the first is a CSC pattern (demand rows of each
+    site in turn, ``colptr`` of length ``m + 1``, rows unordered within a
+    site), the second the direct legs along the site's own segment, to be
+    merged by minimum.
 
     One bounded Dijkstra per site (exact limit: batching sources under one
     limit explores more and is slower).  Demand is kept sorted by the first
@@ -817,41 +1025,31 @@ def _network_pairs(
     """
     n_nodes = net.n_nodes
     m = len(ssnap.segment)
-    d_idx = np.flatnonzero(dsnap.snapped)
     s_idx = np.flatnonzero(ssnap.snapped & (s_off <= limit))
     empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
-    if len(d_idx) == 0 or len(s_idx) == 0:
-        return (np.zeros(0, np.int32), np.zeros(m + 1, np.int64), np.zeros(0)), empty
-    du, dv, d_from_u, d_from_v, d_pen_u, d_pen_v = _legs(net, dsnap, d_idx)
-    # demand sorted by the first end of its segment: node k's demand is du_s[u_ptr[k]:u_ptr[k + 1]]
-    order = np.argsort(du, kind="stable")
-    du_s, dv_s = du[order], dv[order]
-    # time from each end of the segment to the demand point, its off-road leg included
-    off_s = d_off[d_idx][order]
-    gu_s, gv_s = d_from_u[order] + off_s, d_from_v[order] + off_s
-    pu_s, pv_s = d_pen_u[order], d_pen_v[order]
-    row_dtype = np.int32 if len(d_off) < 2**31 else np.int64
-    rows_s = d_idx[order].astype(row_dtype)
-    u_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
-    np.cumsum(np.bincount(du_s, minlength=n_nodes), out=u_ptr[1:])
-    # and the same demand listed by the other end (positions in the sorted arrays)
-    v_order = np.argsort(dv_s, kind="stable")
-    du_v = du_s[v_order]
-    v_ptr = np.zeros(n_nodes + 1, dtype=np.int64)
-    np.cumsum(np.bincount(dv_s, minlength=n_nodes), out=v_ptr[1:])
+    row_dtype = np.int32 if n_demand < 2**31 else np.int64
+    made: dict[str, Any] = {}
+
+    def demand_side() -> _DemandIndex:
+        made["snap"], made["off"] = demand()
+        return _DemandIndex.build(net, made["snap"], made["off"], row_dtype)
+
+    if len(s_idx) == 0:
+        demand_side()
+        return (np.zeros(0, np.int32), np.zeros(m + 1, np.int64), np.zeros(0)), empty, made["snap"], made["off"]
     s_node = _at_node(net, ssnap, s_idx)  # a route from a site standing on a node does not pay its penalty
     graph = _source_graph(net, ssnap, s_idx)
     budget = limit - s_off[s_idx]  # time left on the network for each site
-    search = _SiteSearch(
-        graph, n_nodes, limit, budget, s_node, s_off[s_idx], len(d_idx), du_s, dv_s, gu_s, gv_s, pu_s, pv_s,
-        rows_s, u_ptr, v_ptr, v_order, du_v,
-    )
-    rows, vals, per_site = _run_searches(search, len(s_idx), _search_workers(workers, len(s_idx), n_nodes))
+    search = _SiteSearch(graph, n_nodes, limit, budget, s_node, s_off[s_idx], row_dtype, n_demand)
+    n_workers = _search_workers(workers, len(s_idx), n_nodes)
+    search, rows, vals, per_site = _run_searches(search, n_workers, demand_side)
+    dsnap, d_off = made["snap"], made["off"]
     count = np.zeros(m, dtype=np.int64)
     count[s_idx] = per_site
     colptr = np.zeros(m + 1, dtype=np.int64)
     np.cumsum(count, out=colptr[1:])
     # direct legs: demand on the site's own segment
+    d_idx = np.flatnonzero(dsnap.snapped)
     dseg = dsnap.segment[d_idx]
     seg_order = np.argsort(dseg, kind="stable")
     seg_ptr = np.zeros(net.n_segments + 1, dtype=np.int64)
@@ -870,7 +1068,7 @@ def _network_pairs(
         total = s_off[s_idx[rs]] + np.minimum(ahead, behind) + d_off[d_idx[dd]]
         ok = total <= limit
         direct = (d_idx[dd[ok]], s_idx[rs[ok]], total[ok])
-    return (rows, colptr, vals), direct
+    return (rows, colptr, vals), direct, dsnap, d_off
 
 
 def _combine(n: int, m: int, net_pairs: tuple, direct: tuple) -> sp.csr_matrix:
@@ -1047,12 +1245,15 @@ def reach_network(
     )
     object.__setattr__(net, "crs", str(crs))
     n_workers = _search_workers(workers, len(sites), net.n_nodes)
-    dsnap = net.snap(demand.xy, float(max_snap_m), workers=n_workers)
-    ssnap = net.snap(sites.xy, float(max_snap_m), workers=n_workers)
     v_off = float(offroad_speed_kmh) / 3.6
-    d_off = dsnap.distance / v_off
+    ssnap = net.snap(sites.xy, float(max_snap_m), workers=n_workers)
     s_off = ssnap.distance / v_off
-    net_pairs, direct = _network_pairs(net, dsnap, d_off, ssnap, s_off, limit, n_workers)
+
+    def snap_demand() -> tuple[Snap, np.ndarray]:  # while the sites' searches start (see _run_searches)
+        dsnap = net.snap(demand.xy, float(max_snap_m), workers=n_workers)
+        return dsnap, dsnap.distance / v_off
+
+    net_pairs, direct, dsnap, d_off = _network_pairs(net, ssnap, s_off, limit, snap_demand, len(demand), workers)
     mat = _combine(len(demand), len(sites), net_pairs, direct)
     unsnapped_d = np.flatnonzero(~dsnap.snapped)
     unsnapped_s = np.flatnonzero(~ssnap.snapped)

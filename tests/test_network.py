@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import logging
 import os
+import time
 
 import geopandas as gpd
 import networkx as nx
@@ -359,7 +360,8 @@ def test_searches_in_several_processes_give_the_same_pairs(workers):
     assert all(got[k] == pytest.approx(expected[k], abs=1e-9) for k in expected)
 
 
-def test_a_failed_search_process_is_redone_here(monkeypatch, caplog):
+@pytest.mark.parametrize("fail_after", [0, 2])  # at its first search, or after it has taken sites from the parent's share
+def test_a_failed_search_process_is_redone_here(monkeypatch, caplog, fail_after):
     import geocover.network as nw
 
     rng = np.random.default_rng(5)
@@ -369,18 +371,53 @@ def test_a_failed_search_process_is_redone_here(monkeypatch, caplog):
     args = (Demand(demand_xy, np.ones(len(demand_xy)), crs=UTM), Sites(site_xy, crs=UTM), roads, 80.0)
     want = reach_network(*args, speed_field="kmh", workers=1).matrix
     parent = os.getpid()
-    real_run = nw._SiteSearch.run
+    real_reach = nw._SiteSearch.reach
 
-    def run_failing_in_children(self, lo, hi):
+    done = []
+
+    def reach_failing_in_children(self, i):
         if os.getpid() != parent:
-            raise MemoryError("simulated")
-        return real_run(self, lo, hi)
+            done.append(i)
+            if len(done) > fail_after:
+                raise MemoryError("simulated")
+        return real_reach(self, i)
 
-    monkeypatch.setattr(nw._SiteSearch, "run", run_failing_in_children)
+    monkeypatch.setattr(nw._SiteSearch, "reach", reach_failing_in_children)
+    real_build = nw._DemandIndex.build.__func__
+
+    def slow_build(cls, *a):  # the child gets to its failure before this process takes any site
+        time.sleep(0.3)
+        return real_build(cls, *a)
+
+    monkeypatch.setattr(nw._DemandIndex, "build", classmethod(slow_build))
     with caplog.at_level(logging.WARNING, logger="geocover.network"):
         got = reach_network(*args, speed_field="kmh", workers=2).matrix
     assert "search process failed" in caplog.text and "MemoryError" in caplog.text
     assert (got != want).nnz == 0 and got.nnz == want.nnz
+
+
+def test_no_search_process_outlives_a_failed_or_empty_demand(monkeypatch):
+    import multiprocessing
+
+    import geocover.network as nw
+
+    rng = np.random.default_rng(2)
+    roads = _random_grid(rng, size=6)
+    sites = Sites(rng.uniform(0, 500, (6, 2)), crs=UTM)
+    # the children start searching before the demand is snapped; with none snapped they are stopped
+    far = Demand(np.array([[1e5, 1e5], [-1e5, 0.0]]), np.ones(2), crs=UTM)
+    r = reach_network(far, sites, roads, 80.0, speed_field="kmh", workers=2)
+    assert r.matrix.nnz == 0 and len(r.notes["unsnapped_demand"]) == 2
+    assert not multiprocessing.active_children()
+
+    def broken(*args, **kwargs):
+        raise MemoryError("simulated")
+
+    monkeypatch.setattr(nw._DemandIndex, "build", broken)
+    near = Demand(rng.uniform(0, 500, (20, 2)), np.ones(20), crs=UTM)
+    with pytest.raises(MemoryError):
+        reach_network(near, sites, roads, 80.0, speed_field="kmh", workers=2)
+    assert not multiprocessing.active_children()
 
 
 def test_workers_must_be_a_whole_number():
