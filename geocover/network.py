@@ -119,6 +119,9 @@ class Snap:
         return self.segment >= 0
 
 
+_SNAP_CHUNK = 16384  # points snapped at a time
+
+
 @dataclass(frozen=True, eq=False)
 class RoadNetwork:
     """A directed road graph made of straight segments.
@@ -210,11 +213,16 @@ class RoadNetwork:
             if len(rows) == 0 or kk >= n_p:
                 break
             kk = min(want, n_p)
-            d_mid, cand = tree.query(xy[rows], k=kk, workers=workers)
-            d_mid, cand = d_mid.reshape(len(rows), kk), cand.reshape(len(rows), kk)
-            best_p[rows], best_t[rows], best_d[rows] = self._nearest_of(xy[rows], cand)
-            # a piece left out has its midpoint at least d_mid[:, -1] away, so it is at least that less half
-            rows = rows[d_mid[:, -1] - half <= best_d[rows]]
+            # in chunks, so that the candidates' temporaries stay small and are reused (fresh memory is slow)
+            left = []
+            for at in range(0, len(rows), _SNAP_CHUNK):
+                part = rows[at : at + _SNAP_CHUNK]
+                d_mid, cand = tree.query(xy[part], k=kk, workers=workers)
+                d_mid, cand = d_mid.reshape(len(part), kk), cand.reshape(len(part), kk)
+                best_p[part], best_t[part], best_d[part] = self._nearest_of(xy[part], cand)
+                # a piece left out has its midpoint at least d_mid[:, -1] away, so it is at least that less half
+                left.append(part[d_mid[:, -1] - half <= best_d[part]])
+            rows = np.concatenate(left)
         if len(rows) and kk < n_p:  # rare: many pieces about as near; take every one that could be nearer
             lists = tree.query_ball_point(xy[rows], r=(best_d[rows] + half) * (1 + 1e-12) + 1e-9, workers=workers)
             for row, ids in zip(rows, lists):
