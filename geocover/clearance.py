@@ -152,6 +152,8 @@ def screen_zones(
     gridded = np.flatnonzero(on_grid)
     upper = settled = np.zeros(0)
     if grid is not None:
+        # the sites in cell order: neighbouring sites read the same zones, so the gathers stay in cache
+        gridded = gridded[np.argsort(grid.cell_of(xy[rows[gridded]]), kind="stable")]
         gxy = xy[rows[gridded]]
 
         def on(part: slice) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -278,12 +280,13 @@ def _group_min(index: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
     return out
 
 
-def _ranges(starts: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The concatenation of ``range(s, s + c)`` for each pair, and the owner of each element."""
+def _ranges(starts: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """The concatenation of ``range(s, s + c)`` for each pair."""
     total = int(counts.sum())
-    owner = np.repeat(np.arange(len(counts)), counts)
     offsets = np.cumsum(counts) - counts
-    return np.arange(total) - np.repeat(offsets - starts, counts), owner
+    out = np.repeat(starts - offsets, counts)
+    out += np.arange(total)
+    return out
 
 
 def _run_distance(px: np.ndarray, py: np.ndarray, vx: np.ndarray, vy: np.ndarray) -> np.ndarray:
@@ -366,7 +369,7 @@ class ZoneGrid:
     ny: int
     cell_start: np.ndarray
     zone: np.ndarray  # members sorted by cell, and their envelope centre and radius (largest vertex distance)
-    centre: np.ndarray  # (grid rows, [x, y, radius])
+    centre: np.ndarray  # ([x, y, radius], grid rows): three contiguous rows, gathered one by one
     rmax: float  # largest radius in the grid
     other: np.ndarray  # zones not in the grid (big, with many vertices, or collections): GEOS path
 
@@ -389,7 +392,7 @@ class ZoneGrid:
         if len(split):
             pieces = _pieces(geoms[split])
             counts = shapely.get_num_coordinates(pieces) if pieces is not None else None
-            where, _ = _ranges(vstart[split], vcount[split])
+            where = _ranges(vstart[split], vcount[split])
             if counts is not None and int(counts.sum()) == len(where):
                 ptype = shapely.get_type_id(pieces)
                 keep = counts > 0
@@ -461,7 +464,7 @@ class ZoneGrid:
         band = max(1e-6, 1e-12 * float(np.abs(env[members]).max()))  # the envelopes hold every vertex
         return cls(
             geoms, run_x, run_y, np.isin(types[sorted_members], (3, 6)), band, cell, x0, y0, nx, ny, cell_start,
-            sorted_members, np.stack([cx, cy, radius], axis=1)[sorted_members], rmax,
+            sorted_members, np.stack([cx[sorted_members], cy[sorted_members], radius[sorted_members]]), rmax,
             np.flatnonzero(~member),
         )
 
@@ -492,6 +495,12 @@ class ZoneGrid:
                 cover[doubt] = shapely.intersects_xy(self.geoms[self.zone[row[doubt]]], px[doubt], py[doubt])
         return out, cover
 
+    def cell_of(self, xy: np.ndarray) -> np.ndarray:
+        """The grid cell of each point (clipped to the grid), numbered row by row."""
+        ix = np.clip((xy[:, 0] - self.x0) // self.cell, 0, self.nx - 1).astype(np.int64)
+        iy = np.clip((xy[:, 1] - self.y0) // self.cell, 0, self.ny - 1).astype(np.int64)
+        return iy * self.nx + ix
+
     def candidates(
         self, px: np.ndarray, py: np.ndarray, reach: int = 1
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -514,11 +523,18 @@ class ZoneGrid:
         base = np.clip(r, 0, self.ny - 1).astype(np.int64) * self.nx
         starts = self.cell_start[base + lo[:, None]]
         counts = np.where(ok, self.cell_start[base + hi[:, None] + 1] - starts, 0)
-        row, _ = _ranges(starts.ravel(), counts.ravel())
+        row = _ranges(starts.ravel(), counts.ravel())
         site = np.repeat(np.arange(len(px)), counts.sum(axis=1))
-        q = self.centre[row]
-        dx, dy = px[site] - q[:, 0], py[site] - q[:, 1]
-        lower = np.sqrt(dx * dx + dy * dy) - q[:, 2]
+        cx, cy, radius = self.centre
+        dx = px[site]
+        dx -= cx[row]
+        dy = py[site]
+        dy -= cy[row]
+        dx *= dx
+        dy *= dy
+        dx += dy
+        lower = np.sqrt(dx, out=dx)
+        lower -= radius[row]
         return site, row, lower, edge
 
     def screen(
