@@ -294,6 +294,10 @@ class _Shapes:
         pointish = ~missing & ~empty & np.isin(types, _POINT_TYPES)
         nonfinite = np.zeros(len(geoms), dtype=bool)
         point_xy = None
+        if pointish.all() and (types == 0).all():  # single points only (the usual candidate layer): one coordinate each
+            coords = shapely.get_coordinates(geoms)
+            if len(coords) == len(geoms):
+                return cls(missing, empty, types, ~np.isfinite(coords).all(axis=1), coords)
         if pointish.any():
             coords, owner = shapely.get_coordinates(geoms[pointish], return_index=True)
             bad = ~np.isfinite(coords).all(axis=1)

@@ -267,8 +267,8 @@ class ScreeningRecord:
             ("land_use_share", np.float64, np.nan),
         ):
             object.__setattr__(self, name, _freeze(_as_vector(getattr(self, name), n, dtype, f"record {name}", default)))
-        located = self.verdict.astype(str) != Verdict.INVALID.value
-        if n and not np.isfinite(xy[located]).all():
+        lacking = np.flatnonzero(~np.isfinite(xy).all(axis=1))
+        if len(lacking) and (self.verdict[lacking].astype(str) != Verdict.INVALID.value).any():
             raise InputError("screening record: only rows with verdict 'invalid' may lack finite coordinates")
         object.__setattr__(self, "notes", tuple(self.notes))
         object.__setattr__(self, "zones", dict(self.zones))

@@ -193,3 +193,17 @@ def test_a_grid_with_no_people_says_so(tiny):
     write_grid(tiny["grid"], np.zeros((20, 20), "float32"), X0, Y0, 100.0)
     out = assert_clean_exit(_run(tiny), 0)
     assert "holds no people" in out
+
+
+def test_screening_record_allows_missing_coordinates_only_for_invalid_rows():
+    from geocover.values import ScreeningRecord
+
+    def record(verdict):
+        return ScreeningRecord(
+            xy=[[0.0, 0.0], [np.nan, np.nan]], verdict=verdict, rule=["", ""], layer=["", ""], feature=[-1, -1],
+            nearest_exclusion_m=[np.inf, np.inf], site_index=[0, -1],
+        )
+
+    assert len(record(["kept", "invalid"])) == 2
+    with pytest.raises(InputError, match="only rows with verdict 'invalid'"):
+        record(["kept", "excluded"])
