@@ -404,7 +404,13 @@ class ZoneGrid:
         x, y = coords[:, 0], coords[:, 1]
         env = shapely.bounds(geoms)
         cx, cy = (env[:, 0] + env[:, 2]) / 2, (env[:, 1] + env[:, 3]) / 2
-        radius = np.sqrt(np.maximum.reduceat((x - cx[owner]) ** 2 + (y - cy[owner]) ** 2, vstart))
+        dx = x - np.repeat(cx, vcount)  # (vertices are grouped by zone: owner is each zone repeated)
+        dx *= dx
+        dy = y - np.repeat(cy, vcount)
+        dy *= dy
+        dx += dy
+        radius = np.sqrt(np.maximum.reduceat(dx, vstart))
+        del dx, dy
         one_piece = bool(np.isin(types, _SIMPLE + (3,)).all()) and not len(split)  # lines and rings, no holes
         if one_piece:
             nseg, written = vcount - 1, vcount
@@ -461,7 +467,7 @@ class ZoneGrid:
         run_x, run_y = coords[:, 0][take], coords[:, 1][take]
         run_x[pad] = np.nan
         run_y[pad] = np.nan
-        band = max(1e-6, 1e-12 * float(np.abs(env[members]).max()))  # the envelopes hold every vertex
+        band = max(1e-6, 1e-12 * max(-float(env.min()), float(env.max())))  # the envelopes hold every vertex
         return cls(
             geoms, run_x, run_y, np.isin(types[sorted_members], (3, 6)), band, cell, x0, y0, nx, ny, cell_start,
             sorted_members, np.stack([cx[sorted_members], cy[sorted_members], radius[sorted_members]]), rmax,
