@@ -24,7 +24,8 @@ Network (issue 5, benchmark 2)
 Every method runs in its own subprocess so that its peak memory (ru_maxrss
 minus the resident size before the method starts) is its own.  For
 geocover with workers the peak is the parent's alone: each forked child
-holds its share of the pairs (about 12 bytes a pair) besides.
+holds one block of sites' pairs at a time (its pairs go to shared memory
+block by block, about 12 bytes a pair, until the parent reads them).
 
 Run from the worktree root::
 

@@ -51,7 +51,7 @@ import os
 import pickle
 import sys
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any, Mapping
+from typing import TYPE_CHECKING, Any, Iterator, Mapping
 
 import numpy as np
 import scipy.sparse as sp
@@ -786,72 +786,82 @@ def _claim(claims: Any, size: int, front: bool) -> tuple[int, int] | None:
         return claims[1], hi
 
 
+# a child's pairs end here in its memfd: written backwards, block by block, as its (descending) blocks are done
+_ROWS_END, _VALS_END = 1 << 40, 1 << 41
+
+
+def _blocks_down(lo: int, hi: int, block: int) -> Iterator[tuple[int, int]]:
+    """``lo .. hi - 1`` in blocks of ``block`` sites, the last block first."""
+    for top in range(hi, lo, -block):
+        yield max(lo, top - block), top
+
+
 def _search_child(conn: Any, out_fd: int, dem_fd: int, ready: Any, claims: Any, block: int,
                   search: _SiteSearch, lo: int, hi: int) -> None:  # pragma: no cover - forked child
     """Search sites of ``lo .. hi - 1`` in a forked child and hand their pairs back through ``out_fd``.
 
     With ``claims`` the child takes blocks from the back of the range it
     shares with the parent (which takes them from the front); without, it
-    searches the whole range.  It starts before the demand is known: node
-    times are kept (reached nodes only) until the parent has written the
-    demand to ``dem_fd`` and set ``ready``.
+    searches its whole range, also from the back.  Each block's pairs are
+    written to the memfd once the block is done, below the previous
+    block's (the pairs end at ``_ROWS_END`` and ``_VALS_END``), so that
+    they end up in site order and only one block is ever held here.  The
+    child starts before the demand is known: node times are kept (reached
+    nodes only) until the parent has written the demand to ``dem_fd`` and
+    set ``ready``.  The counts per site go at the start of the memfd.
     """
     try:
         parent = os.getppid()
         count = np.zeros(hi - lo, dtype=np.int64)
-        at = np.zeros(hi - lo, dtype=np.int64)
-        out = search.buffer(hi - lo)
-        waiting: list[tuple[int, np.ndarray, np.ndarray]] = []
-        scratch = np.empty(0)
+        out = search.buffer(block)
+        itemsize = np.dtype(search.row_dtype).itemsize
+        ends = [_ROWS_END, _VALS_END]
+        held: list[tuple[int, int, list[tuple[np.ndarray, np.ndarray]]]] = []
 
-        def add(i: int, t: np.ndarray) -> None:
-            at[i - lo] = out.fill
-            count[i - lo] = search.add_pairs(out, i, t)
+        def flush() -> None:  # the block's pairs, below those written before
+            c = out.fill
+            ends[0] -= c * itemsize
+            ends[1] -= c * 8
+            _pwrite_all(out_fd, [out.rows[:c]], ends[0])
+            _pwrite_all(out_fd, [out.vals[:c]], ends[1])
+            out.fill = out.done = 0
 
         def take_demand() -> None:
-            nonlocal search, scratch
+            nonlocal search
             search = search.with_demand(_read_demand(dem_fd))
             scratch = np.full(search.n_nodes, np.inf)
-            for i, nodes, times in waiting:
-                scratch[nodes] = times
-                add(i, scratch)
-                scratch[nodes] = np.inf
-            waiting.clear()
+            for a, _, kept in held:
+                for i, (nodes, times) in enumerate(kept, a):
+                    scratch[nodes] = times
+                    count[i - lo] = search.add_pairs(out, i, scratch)
+                    scratch[nodes] = np.inf
+                flush()
+            held.clear()
 
-        # the shared range from its back, block by block (the parent takes it from the front), or the whole share
-        spans = iter(lambda: _claim(claims, block, front=False), None) if claims is not None else iter([(lo, hi)])
+        spans = iter(lambda: _claim(claims, block, front=False), None) if claims is not None else _blocks_down(lo, hi, block)
         first = hi
         for a, b in spans:
             first = a
-            for i in range(a, b):
-                t = search.reach(i)
-                if search.demand is None and ready.is_set():
-                    take_demand()
-                if search.demand is None:
+            if search.demand is None and ready.is_set():
+                take_demand()
+            if search.demand is None:
+                kept = []
+                for i in range(a, b):
+                    t = search.reach(i)
                     nodes = np.flatnonzero(t <= float(search.budget[i]))
-                    waiting.append((i, nodes, t[nodes]))
-                else:
-                    add(i, t)
+                    kept.append((nodes, t[nodes]))
+                held.append((a, b, kept))
+            else:
+                for i in range(a, b):
+                    count[i - lo] = search.add_pairs(out, i, search.reach(i))
+                flush()
         while search.demand is None:
             if ready.wait(1.0):
                 take_demand()
             elif os.getppid() != parent:
                 return  # the parent is gone: nobody wants the pairs
-        # pairs in site order: each site's pairs are contiguous, sites were searched block by block
-        k = hi - first
-        starts, counts = at[first - lo :], count[first - lo :]
-        pieces: list[tuple[int, int]] = []
-        for s, c in zip(starts.tolist(), counts.tolist()):
-            if c == 0:
-                continue
-            if pieces and pieces[-1][1] == s:
-                pieces[-1] = (pieces[-1][0], s + c)
-            else:
-                pieces.append((s, s + c))
-        end = _pwrite_all(out_fd, [counts], 0)
-        end = _pwrite_all(out_fd, [out.rows[a:b] for a, b in pieces], end)
-        _pwrite_all(out_fd, [out.vals[a:b] for a, b in pieces], end)
-        conn.send(("ok", first, int(counts.sum()), k))
+        _pwrite_all(out_fd, [count[first - lo :]], 0)
+        conn.send(("ok", first, (_ROWS_END - ends[0]) // itemsize, hi - first))
     except BaseException as exc:  # report, never leave the parent waiting
         try:
             conn.send(("error", repr(exc)))
@@ -983,9 +993,9 @@ def _run_searches(
             if c in redo:
                 rows[at : at + fill], vals[at : at + fill], count[first:hi] = redo.pop(c)
             else:
-                end = _pread_into(fd, [count[first:hi]], 0)
-                end = _pread_into(fd, [rows[at : at + fill]], end)
-                _pread_into(fd, [vals[at : at + fill]], end)
+                _pread_into(fd, [count[first:hi]], 0)
+                _pread_into(fd, [rows[at : at + fill]], _ROWS_END - fill * rows.itemsize)
+                _pread_into(fd, [vals[at : at + fill]], _VALS_END - fill * vals.itemsize)
             at += fill
         ok = True
     finally:  # also on Ctrl-C or a failed demand: no child is left searching
