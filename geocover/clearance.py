@@ -64,6 +64,10 @@ __all__: list[str] = []  # internal to geocover.sites
 
 _CHUNK = 4096  # sites per task: small arrays stay in cache, and there are tasks for every thread
 _SEGMENTS = 1 << 16  # segment distances evaluated per numpy batch
+# sites per task on the zone grid: sorted by cell they stay local, and numpy holds the GIL between
+# operations, so bigger operations let threads run side by side (measured on the benchmark: two
+# threads 1.1x one with 4,096 sites per task, 1.3-1.7x with 12,500-25,000; 16,384 was best whole)
+_GRID_CHUNK = 16384
 _WIDTH = 64  # zones with more vertices (pieces' breaks included) take the GEOS path
 _MARGIN_REL, _MARGIN_ABS = 1e-9, 1e-6  # slack on bounds for rounding (metres)
 
@@ -160,7 +164,7 @@ def screen_zones(
             site, zone, dist, up, done = grid.screen(gxy[part], setback, nearest)
             return site + part.start, zone, dist, up, done
 
-        parts = in_chunks(on, len(gridded), pool)
+        parts = in_chunks(on, len(gridded), pool, _GRID_CHUNK)
         found.append((gridded[np.concatenate([p[0] for p in parts])], np.concatenate([p[1] for p in parts]),
                       np.concatenate([p[2] for p in parts])))
         upper = np.concatenate([p[3] for p in parts])

@@ -125,6 +125,7 @@ def test_threads_and_chunks_do_not_change_the_result(monkeypatch):
     rule = [Exclusion(zones, setback_m=40.0, name="zones")]
     _, serial = screen_sites(sites, exclude=rule, threads=1)
     monkeypatch.setattr(clearance, "_CHUNK", 37)  # many small tasks, handed out to the threads in any order
+    monkeypatch.setattr(clearance, "_GRID_CHUNK", 37)
     for threads in (1, 2, 3):
         _, threaded = screen_sites(sites, exclude=rule, threads=threads)
         for field in ("verdict", "rule", "layer", "feature", "site_index"):
