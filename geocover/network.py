@@ -451,7 +451,8 @@ def build_network(
     n = len(uniq)
     # intersections: three or more distinct neighbouring nodes
     lo_end, hi_end = np.minimum(seg_u, seg_v), np.maximum(seg_u, seg_v)
-    pair_key = np.unique(lo_end * max(n, 1) + hi_end)
+    pair_key = np.sort(lo_end * max(n, 1) + hi_end)  # distinct node pairs (a sort and a compare: faster than np.unique)
+    pair_key = pair_key[np.r_[True, pair_key[1:] != pair_key[:-1]]] if len(pair_key) else pair_key
     degree = np.bincount(np.concatenate([pair_key // max(n, 1), pair_key % max(n, 1)]), minlength=n)
     intersection = degree >= 3
     tail = np.concatenate([seg_u[forward], seg_v[backward]])
@@ -486,11 +487,17 @@ def _min_csr(tail: np.ndarray, head: np.ndarray, weight: np.ndarray, n: int) -> 
 
 def _min_rows(tail: np.ndarray, head: np.ndarray, weight: np.ndarray, rows: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """``(indptr, indices, data)`` of ``rows`` CSR rows, keeping the smallest weight of parallel edges."""
-    order = np.lexsort((weight, head, tail))
-    tail, head, weight = tail[order], head[order], weight[order]
-    first = np.ones(len(tail), dtype=bool)
-    first[1:] = (tail[1:] != tail[:-1]) | (head[1:] != head[:-1])
-    tail, head, weight = tail[first], head[first], weight[first]
+    # one integer key per (tail, head): a stable sort of it and a least weight per run of equal keys
+    # (parallel edges are rare) cost about a third of a lexsort on three keys
+    width = int(head.max()) + 1 if len(head) else 1
+    key = tail * width + head
+    order = np.argsort(key, kind="stable")
+    key = key[order]
+    starts = np.flatnonzero(np.r_[True, key[1:] != key[:-1]]) if len(key) else np.zeros(0, dtype=np.int64)
+    weight = weight[order]
+    if len(starts) < len(key):
+        weight = np.minimum.reduceat(weight, starts)
+    tail, head = tail[order[starts]], head[order[starts]]
     indptr = np.zeros(rows + 1, dtype=np.int64)
     np.cumsum(np.bincount(tail, minlength=rows), out=indptr[1:])
     return indptr, head, weight
