@@ -403,11 +403,10 @@ def build_network(
         raise CRSError("roads: the layer is in a geographic CRS; reproject it to the projected working CRS first")
     penalty = _check_penalty(turn_penalty_s)
     geoms = np.asarray(roads.geometry.values, dtype=object)
-    present = ~shapely.is_missing(geoms)
-    present[present] = ~shapely.is_empty(geoms[present])
+    present = ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms)  # (None is neither empty nor typed)
     if (~present).any():
         logger.warning("roads: %d feature(s) without geometry are skipped", int((~present).sum()))
-    kinds = shapely.get_type_id(np.where(present, geoms, None))
+    kinds = shapely.get_type_id(geoms)
     wrong = present & ~np.isin(kinds, [1, 5])  # LineString, MultiLineString
     if wrong.any():
         first = int(np.flatnonzero(wrong)[0])
