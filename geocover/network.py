@@ -196,8 +196,10 @@ class RoadNetwork:
             ab = pb - pa
             half = 0.5 * float(np.max(np.hypot(*ab.T)))
             len2 = ab[:, 0] * ab[:, 0] + ab[:, 1] * ab[:, 1]
-            # piece start, direction and squared length as separate contiguous columns for the gathers
-            index = (cKDTree(0.5 * (pa + pb)), parent, f0, f1, pa[:, 0].copy(), pa[:, 1].copy(),
+            # piece start, direction and squared length as separate contiguous columns for the gathers;
+            # the tree built by midpoint splits (a third of the build time, queries as fast)
+            tree = cKDTree(0.5 * (pa + pb), balanced_tree=False, compact_nodes=False)
+            index = (tree, parent, f0, f1, pa[:, 0].copy(), pa[:, 1].copy(),
                      ab[:, 0].copy(), ab[:, 1].copy(), np.where(len2 > 0, len2, 1.0), half)
             self._cache["index"] = index
         tree, parent, f0, f1 = index[:4]
