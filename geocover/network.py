@@ -1052,17 +1052,17 @@ def _network_pairs(
     n_nodes = net.n_nodes
     m = len(ssnap.segment)
     s_idx = np.flatnonzero(ssnap.snapped & (s_off <= limit))
-    empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
     row_dtype = np.int32 if n_demand < 2**31 else np.int64
     made: dict[str, Any] = {}
 
-    def demand_side() -> _DemandIndex:
+    def demand_side() -> _DemandIndex:  # (while the children search: the direct legs too)
         made["snap"], made["off"] = demand()
+        made["direct"] = _direct_legs(net, made["snap"], made["off"], ssnap, s_off, s_idx, limit)
         return _DemandIndex.build(net, made["snap"], made["off"], row_dtype)
 
     if len(s_idx) == 0:
         demand_side()
-        return (np.zeros(0, np.int32), np.zeros(m + 1, np.int64), np.zeros(0)), empty, made["snap"], made["off"]
+        return (np.zeros(0, np.int32), np.zeros(m + 1, np.int64), np.zeros(0)), made["direct"], made["snap"], made["off"]
     s_node = _at_node(net, ssnap, s_idx)  # a route from a site standing on a node does not pay its penalty
     graph = _source_graph(net, ssnap, s_idx)
     budget = limit - s_off[s_idx]  # time left on the network for each site
@@ -1074,7 +1074,14 @@ def _network_pairs(
     count[s_idx] = per_site
     colptr = np.zeros(m + 1, dtype=np.int64)
     np.cumsum(count, out=colptr[1:])
-    # direct legs: demand on the site's own segment
+    return (rows, colptr, vals), made["direct"], dsnap, d_off
+
+
+def _direct_legs(
+    net: RoadNetwork, dsnap: Snap, d_off: np.ndarray, ssnap: Snap, s_off: np.ndarray, s_idx: np.ndarray, limit: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``(demand rows, sites, seconds)`` of the demand reached along a site's own segment (respecting one-way)."""
+    empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
     d_idx = np.flatnonzero(dsnap.snapped)
     dseg = dsnap.segment[d_idx]
     seg_order = np.argsort(dseg, kind="stable")
@@ -1094,7 +1101,7 @@ def _network_pairs(
         total = s_off[s_idx[rs]] + np.minimum(ahead, behind) + d_off[d_idx[dd]]
         ok = total <= limit
         direct = (d_idx[dd[ok]], s_idx[rs[ok]], total[ok])
-    return (rows, colptr, vals), direct, dsnap, d_off
+    return direct
 
 
 def _combine(n: int, m: int, net_pairs: tuple, direct: tuple) -> sp.csr_matrix:
