@@ -295,12 +295,15 @@ def estimate_pairs(demand: Demand, sites: Sites, limit_m: float, sample: int = 2
     return int(round(float(np.sum(counts)) * n / len(pts)))
 
 
-def check_memory(pairs: int, budget_gb: float | None, n_demand: int, what: str = "coverage") -> None:
+def check_memory(
+    pairs: int, budget_gb: float | None, n_demand: int, what: str = "coverage", bytes_per_pair: float = BYTES_PER_PAIR
+) -> None:
     """Refuse, before any work, a relation that would not fit in ``budget_gb``.
 
-    The error names the demand coarsening factor that would fit: merging
-    ``f x f`` grid cells into one divides the demand points, and so the
-    pairs, by about ``f**2``.
+    ``bytes_per_pair`` is the peak memory per pair of the method (default
+    :data:`BYTES_PER_PAIR`).  The error names the demand coarsening factor
+    that would fit: merging ``f x f`` grid cells into one divides the
+    demand points, and so the pairs, by about ``f**2``.
     """
     if budget_gb is None:
         return
@@ -310,7 +313,7 @@ def check_memory(pairs: int, budget_gb: float | None, n_demand: int, what: str =
         budget = math.nan
     if not (math.isfinite(budget) and budget > 0):
         raise ParameterError(f"memory_budget_gb: must be a positive number of GB, got {budget_gb!r}", "memory_budget_gb")
-    need_gb = pairs * BYTES_PER_PAIR / 1e9
+    need_gb = pairs * bytes_per_pair / 1e9
     if need_gb <= budget:
         return
     ratio = need_gb / budget

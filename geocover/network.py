@@ -748,6 +748,24 @@ def _search_workers(workers: int | None, n_sites: int, n_nodes: int) -> int:
     return max(1, min(cpus, _MAX_AUTO_WORKERS, n_sites // 16))
 
 
+#: Peak bytes per covering pair of network coverage: the pairs as searched (int32 row + float64
+#: time) and the finished relation (int32 column + float64 time) side by side while transposing.
+NETWORK_BYTES_PER_PAIR = 24.0
+
+
+def _estimate_pairs(search: _SiteSearch, sample: int = 32) -> int:
+    """Covering pairs through the network, estimated from the searches of ``sample`` sites spread over
+    the list (all of them, and exact, when there are no more): their mean times the number of sites."""
+    m = len(search.budget)
+    pick = np.unique(np.linspace(0, m - 1, min(sample, m)).round().astype(np.int64))
+    out = search.buffer(1)
+    found = 0
+    for i in pick.tolist():
+        found += search.add_pairs(out, i, search.reach(i))
+        out.fill = out.done = 0
+    return int(round(found / len(pick) * m))
+
+
 def _pwrite_all(fd: int, arrays: list[np.ndarray], offset: int = 0) -> int:
     """Write the arrays' bytes one after another at ``offset``; returns the end offset."""
     views = [memoryview(a).cast("B") for a in arrays if a.nbytes]
@@ -1029,12 +1047,16 @@ def _network_pairs(
     demand: Any,
     n_demand: int,
     workers: int | None = None,
+    memory_budget_gb: float | None = None,
 ) -> tuple[tuple[np.ndarray, np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray], Snap, np.ndarray]:
     """Covering pairs through the network and along a site's own segment.
 
     ``demand()`` snaps the ``n_demand`` demand points, returning
     ``(snap, off-road seconds)``; it is called once, while forked
     processes already search from the sites when there are ``workers``.
+    With ``memory_budget_gb``, the pairs are estimated from a sample of the
+    sites' searches once the demand is snapped, and a relation that would
+    not fit is refused then (see :func:`_estimate_pairs`).
 
     Returns ``((rows, colptr, seconds), (rows, cols, seconds), snap,
     off-road seconds)``: the first is a CSC pattern (demand rows of each
@@ -1058,7 +1080,13 @@ def _network_pairs(
     def demand_side() -> _DemandIndex:  # (while the children search: the direct legs too)
         made["snap"], made["off"] = demand()
         made["direct"] = _direct_legs(net, made["snap"], made["off"], ssnap, s_off, s_idx, limit)
-        return _DemandIndex.build(net, made["snap"], made["off"], row_dtype)
+        index = _DemandIndex.build(net, made["snap"], made["off"], row_dtype)
+        if memory_budget_gb is not None and len(s_idx):
+            from .coverage import check_memory
+
+            pairs = _estimate_pairs(search.with_demand(index))
+            check_memory(pairs, memory_budget_gb, n_demand, "network coverage", NETWORK_BYTES_PER_PAIR)
+        return index
 
     if len(s_idx) == 0:
         demand_side()
@@ -1200,6 +1228,7 @@ def reach_network(
     turn_penalty_s: float = 0.0,
     split_crossings: bool = False,
     workers: int | None = None,
+    memory_budget_gb: float | None = None,
 ) -> Reach:
     """Coverage by travel time on a road network (seconds, inclusive).
 
@@ -1239,6 +1268,13 @@ def reach_network(
         per CPU, at most 4, on Linux when the job is big enough to pay for
         the fork (sites x nodes >= 5 million); 1 searches in this process.
         The result is the same whatever the count.
+    memory_budget_gb : float, optional
+        Refuse a relation that would need more memory than this (GB),
+        with the coarsening that would fit, before the searches have gone
+        far: once the demand is snapped, the pairs are estimated from the
+        searches of 32 sites spread over the list (exact with 32 sites or
+        fewer) at 24 bytes a pair (the pairs as searched and the finished
+        relation side by side).  None (default): no check.
 
     Returns
     -------
@@ -1266,6 +1302,12 @@ def reach_network(
     _check_penalty(turn_penalty_s)  # before the road layer is read
     if workers is not None and (isinstance(workers, (bool, np.bool_)) or not isinstance(workers, (int, np.integer)) or workers < 1):
         raise ParameterError(f"workers: must be a whole number of 1 or more (or None for automatic), got {workers!r}", "workers")
+    if memory_budget_gb is not None and (
+        isinstance(memory_budget_gb, (bool, np.bool_))
+        or not isinstance(memory_budget_gb, (int, float, np.integer, np.floating))
+        or not (math.isfinite(memory_budget_gb) and memory_budget_gb > 0)
+    ):
+        raise ParameterError(f"memory_budget_gb: must be a positive number of GB, got {memory_budget_gb!r}", "memory_budget_gb")
     frame = _resolve_roads(roads, crs)
     net = build_network(
         frame,
@@ -1286,7 +1328,9 @@ def reach_network(
         dsnap = net.snap(demand.xy, float(max_snap_m), workers=n_workers)
         return dsnap, dsnap.distance / v_off
 
-    net_pairs, direct, dsnap, d_off = _network_pairs(net, ssnap, s_off, limit, snap_demand, len(demand), workers)
+    net_pairs, direct, dsnap, d_off = _network_pairs(
+        net, ssnap, s_off, limit, snap_demand, len(demand), workers, memory_budget_gb
+    )
     mat = _combine(len(demand), len(sites), net_pairs, direct)
     unsnapped_d = np.flatnonzero(~dsnap.snapped)
     unsnapped_s = np.flatnonzero(~ssnap.snapped)

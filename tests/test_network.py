@@ -429,3 +429,67 @@ def test_workers_must_be_a_whole_number():
             reach_network(d, s, "no/such/roads.gpkg", 60.0, speed_field="kmh", workers=bad)  # before any read
         assert err.value.param == "workers"
     assert reach_network(d, s, roads, 60.0, speed_field="kmh", workers=4).matrix.nnz == 1  # more workers than sites
+
+
+# ----------------------------------------------------------------- memory budget
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_a_relation_over_the_memory_budget_is_refused_once_the_demand_is_snapped(workers):
+    import multiprocessing
+
+    import geocover.network as nw
+
+    rng = np.random.default_rng(8)
+    roads = _random_grid(rng, size=8)
+    demand = Demand(rng.uniform(0, 700, (400, 2)), np.ones(400), crs=UTM)
+    sites = Sites(rng.uniform(0, 700, (40, 2)), crs=UTM)
+    full = reach_network(demand, sites, roads, 80.0, speed_field="kmh", workers=1)
+    assert full.matrix.nnz > 1000
+    # 40 sites, 32 of them searched for the estimate: within 20 % of the pairs found (0.4 % here)
+    net = full.notes["network"]
+    est = nw._estimate_pairs(_search_of(nw, net, full, demand, 80.0))
+    assert 0.8 * full.matrix.nnz < est < 1.2 * full.matrix.nnz
+    need_gb = est * nw.NETWORK_BYTES_PER_PAIR / 1e9
+    with pytest.raises(InputError, match=r"network coverage: about [\d,]+ demand-site pairs .* memory budget"):
+        reach_network(demand, sites, roads, 80.0, speed_field="kmh", workers=workers, memory_budget_gb=need_gb / 2)
+    assert not multiprocessing.active_children()
+    ok = reach_network(demand, sites, roads, 80.0, speed_field="kmh", workers=workers, memory_budget_gb=need_gb * 2)
+    assert (ok.matrix != full.matrix).nnz == 0
+
+
+def test_the_pair_estimate_is_exact_for_32_sites_or_fewer():
+    import geocover.network as nw
+
+    rng = np.random.default_rng(9)
+    roads = _random_grid(rng, size=7)
+    demand = Demand(rng.uniform(0, 600, (200, 2)), np.ones(200), crs=UTM)
+    sites = Sites(rng.uniform(0, 600, (12, 2)), crs=UTM)
+    r = reach_network(demand, sites, roads, 70.0, speed_field="kmh", workers=1)
+    search = _search_of(nw, r.notes["network"], r, demand, 70.0)
+    pairs, _, _, _ = nw._network_pairs(
+        r.notes["network"], r.notes["site_snap"], r.notes["site_snap"].distance / (5.0 / 3.6), 70.0,
+        lambda: (r.notes["demand_snap"], r.notes["demand_snap"].distance / (5.0 / 3.6)), len(demand), 1,
+    )
+    assert nw._estimate_pairs(search) == len(pairs[0])
+
+
+def test_memory_budget_must_be_a_positive_number():
+    roads = _roads([[(0.0, 0.0), (1000.0, 0.0)]], kmh=[36.0])
+    d = Demand(np.array([[600.0, 0.0]]), [1.0], crs=UTM)
+    s = Sites(np.array([[0.0, 0.0]]), crs=UTM)
+    for bad in (0, -1.0, float("nan"), "1", True):
+        with pytest.raises(ParameterError) as err:
+            reach_network(d, s, "no/such/roads.gpkg", 60.0, speed_field="kmh", memory_budget_gb=bad)  # before any read
+        assert err.value.param == "memory_budget_gb"
+
+
+def _search_of(nw, net, reach, demand, limit):
+    """The sites' search with its demand, as reach_network makes it (off-road at 5 km/h)."""
+    v = 5.0 / 3.6
+    ssnap, dsnap = reach.notes["site_snap"], reach.notes["demand_snap"]
+    s_off = ssnap.distance / v
+    s_idx = np.flatnonzero(ssnap.snapped & (s_off <= limit))
+    search = nw._SiteSearch(nw._source_graph(net, ssnap, s_idx), net.n_nodes, limit, limit - s_off[s_idx],
+                            nw._at_node(net, ssnap, s_idx), s_off[s_idx], np.int32, len(demand))
+    return search.with_demand(nw._DemandIndex.build(net, dsnap, dsnap.distance / v, np.int32))

@@ -109,6 +109,7 @@ def build_reach(p: Mapping[str, Any], demand: Demand, sites: Sites, run: RunCont
             offroad_speed_kmh=p["offroad_speed_kmh"],
             max_snap_m=p["max_snap"],
             turn_penalty_s=p["turn_penalty"],
+            memory_budget_gb=p["memory_gb"],
         )
     from .. import coverage
 
