@@ -158,6 +158,58 @@ def open_raster(path: Path | str, what: str = "raster") -> Any:
     return src
 
 
+def owner_tag() -> str:
+    """``HOST-PID`` of this process, put in the names of temporary outputs so that a later run can
+    tell the leftovers of a process that was killed (kill -9, a power cut) from those of one at work."""
+    import socket
+
+    host = "".join(c if c.isalnum() or c in "-_" else "_" for c in socket.gethostname()) or "host"
+    return f"{host}-{os.getpid()}"
+
+
+def clear_leftovers(folder: Path | str, prefix: str) -> list[Path]:
+    """Remove the temporaries named ``PREFIX.HOST-PID.*`` in ``folder`` whose process is gone.
+
+    Only this host's are touched (a folder on a shared disk may hold another
+    machine's at work), and only when no process with that id runs here.
+    Returns what was removed; what cannot be removed is left, silently.
+    """
+    import shutil
+
+    host = owner_tag().rsplit("-", 1)[0]
+    removed: list[Path] = []
+    try:
+        entries = list(Path(folder).iterdir())
+    except OSError:
+        return removed
+    for entry in entries:
+        rest = entry.name[len(prefix) + 1 :] if entry.name.startswith(prefix + ".") else ""
+        tag = rest.split(".", 1)[0]
+        if "-" not in tag or tag.rsplit("-", 1)[0] != host or not tag.rsplit("-", 1)[1].isdigit():
+            continue
+        pid = int(tag.rsplit("-", 1)[1])
+        if pid == os.getpid() or _running(pid):
+            continue
+        with contextlib.suppress(OSError):
+            if entry.is_dir() and not entry.is_symlink():
+                shutil.rmtree(entry)
+            else:
+                entry.unlink()
+            removed.append(entry)
+            logger.info("removed %s, left by an earlier run that was stopped (process %d)", entry, pid)
+    return removed
+
+
+def _running(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except OSError:  # it exists but is not ours (EPERM): it runs
+        return True
+    return True
+
+
 @contextlib.contextmanager
 def atomic_output(target: Path | str, inputs: tuple[Path, ...] = ()) -> Iterator[Path]:
     """Yield a temporary path beside ``target``; rename it over ``target`` on success.
@@ -171,7 +223,8 @@ def atomic_output(target: Path | str, inputs: tuple[Path, ...] = ()) -> Iterator
             if Path(src).resolve() == target:
                 raise OutputError(f"output {target} is also an input; choose another output folder or name")
     target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{target.stem}.", suffix=f".tmp{target.suffix}", dir=target.parent)
+    clear_leftovers(target.parent, f".{target.stem}")
+    fd, tmp_name = tempfile.mkstemp(prefix=f".{target.stem}.{owner_tag()}.", suffix=f".tmp{target.suffix}", dir=target.parent)
     os.close(fd)
     tmp = Path(tmp_name)
     tmp.unlink()  # GDAL wants to create the file itself

@@ -73,6 +73,57 @@ def test_interrupt_while_writing_keeps_the_previous_complete_output(tiny, monkey
     assert snapshot(out) == before
 
 
+def test_leftovers_of_a_killed_run_are_removed_by_the_next_run(tiny, previous_output):
+    """kill -9 while writing leaves a staging folder and temporary files; the next run into the folder
+    removes those of this host whose process is gone, and nothing else."""
+    import os
+    import shutil
+    import subprocess
+    import sys
+
+    from geocover.layers import owner_tag
+    from geocover.toolbox.study import run_study
+
+    study = write_study(tiny["dir"])
+    out = shutil.copytree(previous_output, tiny["dir"] / "out")
+    host = owner_tag().rsplit("-", 1)[0]
+    dead = int(subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True,
+                              text=True, check=True).stdout)
+    gone = [out / f".study.staging.{host}-{dead}.k3j2", out / f".study.staging.{host}-{dead}.x81q"]
+    kept = [out / f".study.staging.{host}-{os.getppid()}.a1b2",  # a process that runs
+            out / f".study.staging.otherhost-{dead}.c3d4",  # another machine's, on a shared disk
+            out / ".study.staging.e5f6", out / "notes.study.staging.txt"]  # not ours to judge
+    for path in gone + kept:
+        if path.suffix in (".gpkg", ".txt"):
+            path.write_bytes(b"partial")
+        else:
+            path.mkdir()
+            (path / "study.gpkg").write_bytes(b"partial")
+    run_study(study, out)
+    assert not any(p.exists() for p in gone)
+    assert all(p.exists() for p in kept)
+    assert {"manifest.json", "report.html", "study.gpkg"} <= {p.name for p in out.iterdir()}
+
+
+def test_a_temporary_file_left_beside_an_output_is_removed_by_the_next_write(tmp_path):
+    import subprocess
+    import sys
+
+    from geocover.layers import atomic_output, owner_tag
+
+    host = owner_tag().rsplit("-", 1)[0]
+    dead = int(subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True,
+                              text=True, check=True).stdout)
+    left = tmp_path / f".sites.{host}-{dead}.q9w8.tmp.gpkg"
+    other = tmp_path / f".roads.{host}-{dead}.q9w8.tmp.gpkg"  # another output's: its own next write clears it
+    for path in (left, other):
+        path.write_bytes(b"partial")
+    with atomic_output(tmp_path / "sites.gpkg") as tmp:
+        tmp.write_bytes(b"complete")
+    assert (tmp_path / "sites.gpkg").read_bytes() == b"complete"
+    assert not left.exists() and other.exists()
+
+
 def test_interrupt_into_an_empty_folder_leaves_nothing(tiny, monkeypatch):
     from geocover.toolbox.study import run_study
 

@@ -249,14 +249,15 @@ def write_outputs(outcome: StudyOutcome, out_dir: Path, run: RunContext, name: s
     or a Ctrl-C while writing leaves the previous output untouched (never a
     new GeoPackage beside an old report).  A Ctrl-C during the final moves
     completes them before it is passed on.  The staging folder is always
-    removed.
+    removed; one left by a run that was killed outright (its process gone)
+    is removed by the next run into the same folder.
     """
     import contextlib
     import shutil
     import tempfile
 
     from ..errors import OutputError
-    from ..layers import atomic_output, write_layers
+    from ..layers import atomic_output, clear_leftovers, owner_tag, write_layers
     from ..outputs import study_layers
     from ..report import write_report
 
@@ -269,7 +270,8 @@ def write_outputs(outcome: StudyOutcome, out_dir: Path, run: RunContext, name: s
                 raise OutputError(f"output {target.resolve()} is also an input; choose another output folder or name")
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
-        staging = Path(tempfile.mkdtemp(prefix=f".{name}.staging.", dir=out_dir))
+        clear_leftovers(out_dir, f".{name}.staging")  # of a run killed while writing (kill -9, a power cut)
+        staging = Path(tempfile.mkdtemp(prefix=f".{name}.staging.{owner_tag()}.", dir=out_dir))
     except OSError as exc:
         raise OutputError(f"cannot write into the output folder {out_dir} ({exc}); choose another one (--out)") from exc
     try:
