@@ -766,25 +766,12 @@ def _estimate_pairs(search: _SiteSearch, sample: int = 32) -> int:
     return int(round(found / len(pick) * m))
 
 
-def _pwrite_all(fd: int, arrays: list[np.ndarray], offset: int = 0) -> int:
-    """Write the arrays' bytes one after another at ``offset``; returns the end offset."""
+def _vectored(io: Any, fd: int, arrays: list[np.ndarray], offset: int) -> int:
+    """Move the bytes of the (contiguous) arrays, one after another, to ``fd`` (``os.pwritev``) or from it
+    (``os.preadv``) at ``offset``, in as many calls as it takes; returns the end offset."""
     views = [memoryview(a).cast("B") for a in arrays if a.nbytes]
     while views:
-        done = os.pwritev(fd, views[:_IOV_MAX], offset)
-        offset += done
-        while views and done >= len(views[0]):
-            done -= len(views[0])
-            views.pop(0)
-        if views and done:
-            views[0] = views[0][done:]
-    return offset
-
-
-def _pread_into(fd: int, arrays: list[np.ndarray], offset: int = 0) -> int:
-    """Fill the arrays (contiguous, writable) from the bytes at ``offset``; returns the end offset."""
-    views = [memoryview(a).cast("B") for a in arrays if a.nbytes]
-    while views:
-        done = os.preadv(fd, views[:_IOV_MAX], offset)
+        done = io(fd, views[:_IOV_MAX], offset)
         if done == 0:
             raise EOFError("network coverage: a search process handed back fewer bytes than it announced")
         offset += done
@@ -794,6 +781,16 @@ def _pread_into(fd: int, arrays: list[np.ndarray], offset: int = 0) -> int:
         if views and done:
             views[0] = views[0][done:]
     return offset
+
+
+def _pwrite_all(fd: int, arrays: list[np.ndarray], offset: int = 0) -> int:
+    """Write the arrays' bytes one after another at ``offset``; returns the end offset."""
+    return _vectored(os.pwritev, fd, arrays, offset)
+
+
+def _pread_into(fd: int, arrays: list[np.ndarray], offset: int = 0) -> int:
+    """Fill the arrays (contiguous, writable) from the bytes at ``offset``; returns the end offset."""
+    return _vectored(os.preadv, fd, arrays, offset)
 
 
 _IOV_MAX = 512

@@ -493,3 +493,30 @@ def _search_of(nw, net, reach, demand, limit):
     search = nw._SiteSearch(nw._source_graph(net, ssnap, s_idx), net.n_nodes, limit, limit - s_off[s_idx],
                             nw._at_node(net, ssnap, s_idx), s_off[s_idx], np.int32, len(demand))
     return search.with_demand(nw._DemandIndex.build(net, dsnap, dsnap.distance / v, np.int32))
+
+
+def test_pairs_cross_between_processes_whole_in_many_and_short_transfers():
+    import geocover.network as nw
+
+    if not hasattr(os, "memfd_create"):
+        pytest.skip("memfd_create is Linux only")
+    rng = np.random.default_rng(4)
+    arrays = [rng.integers(0, 1000, int(k)).astype(np.int32) for k in rng.integers(0, 9, 1100)]  # > _IOV_MAX pieces
+    fd = os.memfd_create("test", os.MFD_CLOEXEC)
+    try:
+        end = nw._pwrite_all(fd, arrays, 1 << 30)
+        assert end == (1 << 30) + sum(a.nbytes for a in arrays)
+        back = [np.empty_like(a) for a in arrays]
+        assert nw._pread_into(fd, back, 1 << 30) == end
+        assert all((a == b).all() for a, b in zip(arrays, back))
+
+        def short(fd_, views, offset):  # at most 7 bytes a call, as a slow pipe or a signal could make it
+            return os.preadv(fd_, [views[0][:7]], offset)
+
+        again = [np.empty_like(a) for a in arrays]
+        assert nw._vectored(short, fd, again, 1 << 30) == end
+        assert all((a == b).all() for a, b in zip(arrays, again))
+        with pytest.raises(EOFError):
+            nw._pread_into(fd, [np.empty(4, np.int32)], end)  # nothing there
+    finally:
+        os.close(fd)
