@@ -950,6 +950,8 @@ def _run_searches(
     n_sites = len(search.budget)
     if workers <= 1 or n_sites < 2 or "fork" not in mp.get_all_start_methods() or not hasattr(os, "memfd_create"):
         search = search.with_demand(demand_side())
+        if search.demand.n == 0:  # type: ignore[union-attr]  # no demand on the network: nothing to search for
+            return search, np.zeros(0, search.row_dtype), np.zeros(0), np.zeros(n_sites, dtype=np.int64)
         return (search, *search.run(0, n_sites))
     ctx = mp.get_context("fork")
     cuts = _shares(search.budget, workers)
@@ -958,7 +960,7 @@ def _run_searches(
     ready = ctx.Event()
     block = max(1, min(8, shared_end // 32))
     dem_fd = os.memfd_create("geocover-demand", os.MFD_CLOEXEC)
-    # (process, pipe, memfd, lo, hi): the first child shares 0 .. shared_end with this process
+    # (process, pipe, memfd, lo, hi, shared): the first child shares 0 .. shared_end with this process
     children: list[tuple[Any, Any, int, int, int, bool]] = []
     ranges = [(0, shared_end, True)] + [(lo, hi, False) for lo, hi in zip(cuts[2:-1], cuts[3:])]
     ok = False

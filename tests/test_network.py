@@ -396,7 +396,8 @@ def test_a_failed_search_process_is_redone_here(monkeypatch, caplog, fail_after)
     assert (got != want).nnz == 0 and got.nnz == want.nnz
 
 
-def test_no_search_process_outlives_a_failed_or_empty_demand(monkeypatch):
+@pytest.mark.parametrize("workers", [1, 2])
+def test_no_search_process_outlives_a_failed_or_empty_demand(monkeypatch, workers):
     import multiprocessing
 
     import geocover.network as nw
@@ -406,7 +407,7 @@ def test_no_search_process_outlives_a_failed_or_empty_demand(monkeypatch):
     sites = Sites(rng.uniform(0, 500, (6, 2)), crs=UTM)
     # the children start searching before the demand is snapped; with none snapped they are stopped
     far = Demand(np.array([[1e5, 1e5], [-1e5, 0.0]]), np.ones(2), crs=UTM)
-    r = reach_network(far, sites, roads, 80.0, speed_field="kmh", workers=2)
+    r = reach_network(far, sites, roads, 80.0, speed_field="kmh", workers=workers)
     assert r.matrix.nnz == 0 and len(r.notes["unsnapped_demand"]) == 2
     assert not multiprocessing.active_children()
 
@@ -416,7 +417,7 @@ def test_no_search_process_outlives_a_failed_or_empty_demand(monkeypatch):
     monkeypatch.setattr(nw._DemandIndex, "build", broken)
     near = Demand(rng.uniform(0, 500, (20, 2)), np.ones(20), crs=UTM)
     with pytest.raises(MemoryError):
-        reach_network(near, sites, roads, 80.0, speed_field="kmh", workers=2)
+        reach_network(near, sites, roads, 80.0, speed_field="kmh", workers=workers)
     assert not multiprocessing.active_children()
 
 
