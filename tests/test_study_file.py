@@ -71,3 +71,22 @@ def test_section_that_is_not_a_table(tiny):
 def test_output_cannot_escape_through_dotdot(tiny):
     with pytest.raises(StudyFileError, match="would leave the folder"):
         load_study(_write(tiny["dir"], 'out = "../../elsewhere"\n' + GOOD))
+
+
+def test_threads_and_processes_are_study_keys_and_reach_the_run(tiny, monkeypatch):
+    from geocover import network, sites
+    from geocover.toolbox import pipeline
+
+    text = GOOD.replace('candidates = "tiny.gpkg:candidates"', 'candidates = "tiny.gpkg:candidates"\nscreen_threads = 1')
+    text = text.replace('distance = "1 km"', 'distance = "1 km"\nroad_processes = 2')
+    study = load_study(_write(tiny["dir"], text))
+    assert study.sections["sites"]["screen_threads"] == 1 and study.sections["service"]["road_processes"] == 2
+    seen = {}
+    monkeypatch.setattr(sites, "screen_sites", lambda *a, **kw: seen.setdefault("threads", kw["threads"]))
+    monkeypatch.setattr(network, "reach_network", lambda *a, **kw: seen.setdefault("workers", kw["workers"]))
+    pipeline.load_sites(study.sections["sites"], None, None)
+    pipeline.build_reach({**study.sections["service"], "metric": pipeline.ServiceMetric.NETWORK, "roads": "r",
+                          "time": 60.0}, None, None, None)
+    assert seen == {"threads": 1, "workers": 2}
+    with pytest.raises(StudyFileError, match=r"\[sites\] parameter 'screen_threads': must be at least 1"):
+        load_study(_write(tiny["dir"], text.replace("screen_threads = 1", "screen_threads = 0")))

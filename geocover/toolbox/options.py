@@ -74,6 +74,8 @@ SITES = (
     IntList("forbidden_classes", "land-use classes a site may not stand on", None),
     Share("min_share", "least share of a parcel on allowed land use", 0.5),
     Distance("min_spacing", "least distance between two chosen sites", None),
+    Number("screen_threads", "threads that screen the candidates (default: one per core, at most 4)", None,
+           minimum=1, maximum=256, integer=True),
 )
 
 SERVICE = (
@@ -88,6 +90,8 @@ SERVICE = (
     Distance("max_snap", "farthest a point may be from a road", 500.0),
     Duration("turn_penalty", "delay added at every road junction", 0.0, allow_zero=True),
     Number("memory_gb", "memory the coverage relation may use, GB", 8.0, minimum=0.01, unit="GB"),
+    Number("road_processes", "processes for the road travel-time searches (default: one per core for big jobs on "
+           "Linux, at most 4)", None, minimum=1, maximum=256, integer=True),
 )
 
 MODEL = (

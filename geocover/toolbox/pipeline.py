@@ -90,6 +90,7 @@ def load_sites(p: Mapping[str, Any], crs: Any, run: RunContext) -> tuple[Sites, 
         label_field=p.get("label_field"),
         existing_label_field=p.get("existing_label_field"),
         crs=crs,
+        threads=p.get("screen_threads"),
     )
 
 
@@ -110,6 +111,7 @@ def build_reach(p: Mapping[str, Any], demand: Demand, sites: Sites, run: RunCont
             max_snap_m=p["max_snap"],
             turn_penalty_s=p["turn_penalty"],
             memory_budget_gb=p["memory_gb"],
+            workers=p.get("road_processes"),
         )
     from .. import coverage
 
