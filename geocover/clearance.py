@@ -157,7 +157,7 @@ def screen_zones(
     upper = settled = np.zeros(0)
     if grid is not None:
         # the sites in cell order: neighbouring sites read the same zones, so the gathers stay in cache
-        gridded = gridded[np.argsort(grid.cell_of(xy[rows[gridded]]), kind="stable")]
+        gridded = gridded[np.argsort(grid.cell_of(xy[rows[gridded]]))]  # any order of a cell's sites will do
         gxy = xy[rows[gridded]]
 
         def on(part: slice) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -183,12 +183,15 @@ def screen_zones(
     dist = np.concatenate([f[2] for f in found])
     if len(at):
         # the nearest rejecting feature per site, ties to the lowest feature id
-        order = np.lexsort((ids[zone], dist, at))
-        first = order[np.unique(at[order], return_index=True)[1]]
-        site = rows[at[first]]
+        least = _group_min(at, dist, len(rows))
+        tie = dist == least[at]
+        lowest = np.full(len(rows), np.iinfo(np.int64).max)
+        np.minimum.at(lowest, at[tie], ids[zone[tie]])
+        pos = np.flatnonzero(lowest < np.iinfo(np.int64).max)
+        site = rows[pos]
         hit[site] = True
-        feature[site] = ids[zone[first]]
-        near[site] = dist[first]
+        feature[site] = lowest[pos]
+        near[site] = least[pos]
     if not nearest:
         return Hits(hit, feature, near)
     # the others are outside every zone: their nearest distance
@@ -276,11 +279,7 @@ def _by_envelope(
 def _group_min(index: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
     """Least of ``values`` per ``index`` in ``0..n-1`` (inf where there is none)."""
     out = np.full(n, np.inf)
-    if len(index):
-        order = np.argsort(index, kind="stable")
-        index, values = index[order], values[order]
-        starts = np.flatnonzero(np.r_[True, index[1:] != index[:-1]])
-        out[index[starts]] = np.minimum.reduceat(values, starts)
+    np.minimum.at(out, index, values)  # unbuffered, in C since numpy 1.25: faster than sorting by index
     return out
 
 
