@@ -511,27 +511,35 @@ class ZoneGrid:
         return iy * self.nx + ix
 
     def candidates(
-        self, px: np.ndarray, py: np.ndarray, reach: int = 1
+        self, px: np.ndarray, py: np.ndarray, reach: int = 1, ring: bool = False
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """(site, grid row, lower bound of their distance) for the zones in the cells around each site.
 
         The cells are those at most ``reach`` columns and rows from the
-        site's own (3 x 3 for 1).  Also, per site, the distance from it to
-        the outside of those cells.
+        site's own (3 x 3 for 1); with ``ring``, only those exactly ``reach``
+        away (the ring around the cells of ``reach - 1``).  Also, per site,
+        the distance from it to the outside of the cells.
         """
         fx = (px - self.x0) / self.cell
         fy = (py - self.y0) / self.cell
         ix, iy = np.floor(fx), np.floor(fy)
         ux, uy = fx - ix, fy - iy
         edge = self.cell * (reach + np.minimum(np.minimum(ux, 1.0 - ux), np.minimum(uy, 1.0 - uy)))
-        lo = np.clip(ix - reach, 0, self.nx - 1).astype(np.int64)
-        hi = np.clip(ix + reach, 0, self.nx - 1).astype(np.int64)
-        col_ok = (ix + reach >= 0) & (ix - reach <= self.nx - 1)
-        r = iy[:, None] + np.arange(-reach, reach + 1, dtype=np.float64)
-        ok = col_ok[:, None] & (r >= 0) & (r <= self.ny - 1)
+        # per site, runs of cells along grid rows: [lo, hi] on each row ``r``
+        if ring and reach > 1:  # the whole first and last rows; on the rows between, the two end cells
+            side = np.arange(1 - reach, reach, dtype=np.float64)
+            r = iy[:, None] + np.r_[-reach, reach, side, side]
+            a, b = (ix - reach)[:, None], (ix + reach)[:, None]
+            left, right = np.repeat(a, len(side), axis=1), np.repeat(b, len(side), axis=1)
+            lo = np.concatenate([a, a, left, right], axis=1)
+            hi = np.concatenate([b, b, left, right], axis=1)
+        else:
+            r = iy[:, None] + np.arange(-reach, reach + 1, dtype=np.float64)
+            lo, hi = (ix - reach)[:, None], (ix + reach)[:, None]
+        ok = (hi >= 0) & (lo <= self.nx - 1) & (r >= 0) & (r <= self.ny - 1)
         base = np.clip(r, 0, self.ny - 1).astype(np.int64) * self.nx
-        starts = self.cell_start[base + lo[:, None]]
-        counts = np.where(ok, self.cell_start[base + hi[:, None] + 1] - starts, 0)
+        starts = self.cell_start[base + np.clip(lo, 0, self.nx - 1).astype(np.int64)]
+        counts = np.where(ok, self.cell_start[base + np.clip(hi, 0, self.nx - 1).astype(np.int64) + 1] - starts, 0)
         row = _ranges(starts.ravel(), counts.ravel())
         site = np.repeat(np.arange(len(px)), counts.sum(axis=1))
         cx, cy, radius = self.centre
@@ -598,7 +606,7 @@ class ZoneGrid:
             wider = np.flatnonzero(free & ~settled)
             if not len(wider):
                 break
-            site, row, lower, edge = self.candidates(px[wider], py[wider], reach=reach)
+            site, row, lower, edge = self.candidates(px[wider], py[wider], reach=reach, ring=True)
             maybe = np.flatnonzero(lower <= _slack(upper[wider][site]))
             if len(maybe):
                 d = self.measure(px[wider][site[maybe]], py[wider][site[maybe]], row[maybe], inside=False)[0]

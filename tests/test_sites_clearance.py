@@ -171,3 +171,19 @@ def test_errors_come_in_the_same_order_with_threads(threads):
         screen_sites(sites, exclude=[bad_filter], cost_field="price", threads=threads)
     with pytest.raises(ParameterError, match="depth_m"):
         screen_sites(sites, exclude=[bad_filter], threads=threads)
+
+
+def test_ring_candidates_are_the_wider_cells_less_the_inner_ones():
+    # the zones in the ring of cells ``reach`` away, with sites inside and outside the grid's extent
+    rng = np.random.default_rng(3)
+    zones = shapely.buffer(shapely.points(rng.uniform(0, 5000, (300, 2))), 30)
+    grid = clearance.ZoneGrid.build(zones, 10.0)
+    q = np.r_[rng.uniform(0, 5000, (400, 2)), rng.uniform(-2000, 7000, (200, 2))]
+    for reach in (2, 3, 4):
+        s1, r1, _, e1 = grid.candidates(q[:, 0], q[:, 1], reach)
+        s0, r0, _, _ = grid.candidates(q[:, 0], q[:, 1], reach - 1)
+        s2, r2, _, e2 = grid.candidates(q[:, 0], q[:, 1], reach, ring=True)
+        ring = list(zip(s2.tolist(), r2.tolist()))
+        assert len(ring) == len(set(ring))
+        assert set(ring) == set(zip(s1.tolist(), r1.tolist())) - set(zip(s0.tolist(), r0.tolist()))
+        assert len(ring) > 0 and np.array_equal(e1, e2)
