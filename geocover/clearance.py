@@ -123,6 +123,7 @@ def screen_zones(
     nearest: bool = True,
     pool: Executor | None = None,
     grid: Any = NO_GRID,
+    single: np.ndarray | None = None,
 ) -> Hits:
     """Which footprints (at ``rows``) are closer than ``setback`` to a zone, and their nearest-zone distance.
 
@@ -131,7 +132,8 @@ def screen_zones(
     rejecting feature is the nearest such zone, ties to the lowest feature
     id, and the site's nearest distance is that zone's.  The nearest
     distance of the other sites is the least over all zones.  See the module
-    notes for how.
+    notes for how.  ``single``: which footprints are single points, when the
+    caller knows already.
     """
     n = len(footprints)
     hit = np.zeros(n, dtype=bool)
@@ -139,8 +141,7 @@ def screen_zones(
     near = np.full(n, np.inf)
     if not len(geoms) or not len(rows):
         return Hits(hit, feature, near)
-    query = footprints[rows]
-    on_grid = shapely.get_type_id(query) == 0
+    on_grid = (shapely.get_type_id(footprints[rows]) == 0) if single is None else single[rows]
     if grid is NO_GRID:  # not built by the caller (who may pass None: a grid would not pay)
         grid = ZoneGrid.build(geoms, setback) if on_grid.any() else None
     if grid is None:
@@ -172,11 +173,11 @@ def screen_zones(
         if len(grid.other):  # the zones the grid leaves out, by GEOS
             others = geoms[grid.other]
             trees["other"] = shapely.STRtree(others)
-            site, zone, dist = _close_pairs(trees["other"], others, query[gridded], setback, pool)
+            site, zone, dist = _close_pairs(trees["other"], others, footprints[rows[gridded]], setback, pool)
             found.append((gridded[site], grid.other[zone], dist))
     rest_rows = np.flatnonzero(~on_grid)
     if len(rest_rows):
-        site, zone, dist = _close_pairs(tree(), geoms, query[rest_rows], setback, pool)
+        site, zone, dist = _close_pairs(tree(), geoms, footprints[rows[rest_rows]], setback, pool)
         found.append((rest_rows[site], zone, dist))
     at = np.concatenate([f[0] for f in found])
     zone = np.concatenate([f[1] for f in found])
@@ -450,7 +451,7 @@ class ZoneGrid:
         ix = np.floor((gx - x0) / cell).astype(np.int64).clip(0, nx - 1)
         iy = np.floor((gy - y0) / cell).astype(np.int64).clip(0, ny - 1)
         key = iy * nx + ix
-        order = np.argsort(key, kind="stable")
+        order = np.argsort(key)  # the order of a cell's zones does not matter
         cell_start = np.r_[0, np.cumsum(np.bincount(key, minlength=nx * ny))]
         # the members' vertex runs, in cell order: row r is zone members[order[r]]
         sorted_members = members[order]

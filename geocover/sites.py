@@ -285,19 +285,20 @@ class _Shapes:
 
     @classmethod
     def of(cls, geoms: np.ndarray) -> "_Shapes":
-        missing = shapely.is_missing(geoms)
-        empty = np.zeros(len(geoms), dtype=bool)
-        empty[~missing] = shapely.is_empty(geoms[~missing])
-        types = shapely.get_type_id(geoms)
+        types = shapely.get_type_id(geoms)  # -1 where missing
         # for a point, finite coordinates are all GEOS's validity check looks at, and this is
         # several times faster than shapely.is_valid on many points
+        if (types == 0).all():  # single points only (the usual candidate layer)
+            coords = shapely.get_coordinates(geoms)
+            if len(coords) == len(geoms):  # one coordinate each: none is empty (an empty point has none)
+                none = np.zeros(len(geoms), dtype=bool)
+                return cls(none, none.copy(), types, ~np.isfinite(coords).all(axis=1), coords)
+        missing = types < 0
+        empty = np.zeros(len(geoms), dtype=bool)
+        empty[~missing] = shapely.is_empty(geoms[~missing])
         pointish = ~missing & ~empty & np.isin(types, _POINT_TYPES)
         nonfinite = np.zeros(len(geoms), dtype=bool)
         point_xy = None
-        if pointish.all() and (types == 0).all():  # single points only (the usual candidate layer): one coordinate each
-            coords = shapely.get_coordinates(geoms)
-            if len(coords) == len(geoms):
-                return cls(missing, empty, types, ~np.isfinite(coords).all(axis=1), coords)
         if pointish.any():
             coords, owner = shapely.get_coordinates(geoms[pointish], return_index=True)
             bad = ~np.isfinite(coords).all(axis=1)
@@ -384,11 +385,13 @@ class _Located:
     footprint: np.ndarray  # shapely geometries (None where invalid)
     is_point: np.ndarray  # bool
     invalid: np.ndarray  # reason text, "" when usable
+    single: np.ndarray  # bool: a usable single point
 
 
-def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
+def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str], before: _Shapes | None = None) -> _Located:
+    """The sites' locations; ``before``: the frame's :class:`_Shapes`, when known already."""
     raw = np.asarray(frame.geometry.array, dtype=object)
-    before = _Shapes.of(raw)
+    before = before or _Shapes.of(raw)
     geoms = _repair(raw, what, notes, shapes=before)
     shapes = before if geoms is raw else _Shapes.of(geoms)
     n = len(geoms)
@@ -427,7 +430,7 @@ def _locate(frame: "gpd.GeoDataFrame", what: str, notes: list[str]) -> _Located:
     if other.any():
         xy[other] = shapely.get_coordinates(shapely.point_on_surface(geoms[other]))
     footprint = np.where(usable, geoms, None) if unusable.any() else geoms.copy()
-    return _Located(xy, footprint, is_point & usable, reason)
+    return _Located(xy, footprint, is_point & usable, reason, simple)
 
 
 # --------------------------------------------------------------------------- rules
@@ -777,14 +780,15 @@ def _screen_sites(
         working = _working_crs(crs, ex, "existing sites")
     cand = _reproject(cand, working, "candidates", notes)
     # with threads, the zone layers are read now and checked while the sites are prepared
-    points = bool((shapely.get_type_id(np.asarray(cand.geometry.array, dtype=object)) == 0).any())
+    cand_shapes = _Shapes.of(np.asarray(cand.geometry.array, dtype=object))
+    points = bool((cand_shapes.types == 0).any())
     layers = [_ZoneLayer(rule, working, pool, points) for rule in rules] if pool is not None else None
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
     if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
         label_field = "label"  # lattice points carry their own row/column labels
     cand_label = _labels(cand, label_field, "candidate", cand_ids, "candidates layer", required=not only_existing)
-    cand_loc = _locate(cand, "candidates", notes)
+    cand_loc = _locate(cand, "candidates", notes, cand_shapes)
 
     if ex is not None:
         ex = _reproject(ex, working, "existing sites", notes)
@@ -807,14 +811,15 @@ def _screen_sites(
         ex_cost = np.zeros(0)
         ex_label = np.zeros(0, dtype=object)
         ex_role = np.zeros(0, dtype=np.int8)
-        ex_loc = _Located(np.zeros((0, 2)), np.zeros(0, dtype=object), np.zeros(0, dtype=bool), np.zeros(0, dtype=object))
+        none = np.zeros(0, dtype=bool)
+        ex_loc = _Located(np.zeros((0, 2)), np.zeros(0, dtype=object), none, np.zeros(0, dtype=object), none)
 
     k, n = len(ex_ids), len(cand_ids)
     total = k + n
     xy = np.concatenate([ex_loc.xy, cand_loc.xy])
     footprint = np.concatenate([ex_loc.footprint, cand_loc.footprint])
     located = _Located(xy, footprint, np.concatenate([ex_loc.is_point, cand_loc.is_point]),
-                       np.concatenate([ex_loc.invalid, cand_loc.invalid]))
+                       np.concatenate([ex_loc.invalid, cand_loc.invalid]), np.concatenate([ex_loc.single, cand_loc.single]))
     usable = located.invalid == ""
 
     verdict = np.full(total, Verdict.KEPT.value, dtype=object)
@@ -857,7 +862,7 @@ def _screen_sites(
         else:
             (geoms, ids), grid = _exclusion_layer(rule, working, notes), NO_GRID
         zones[str(rule.name)] = geoms
-        hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool, grid=grid)
+        hits = screen_zones(footprint, xy, rows, geoms, ids, rule.setback_m, pool=pool, grid=grid, single=located.single)
         nearest = np.minimum(nearest, hits.nearest)
         reject(hits.hit, Verdict.EXCLUDED, rule.rule, str(rule.name), hits.feature)
 
