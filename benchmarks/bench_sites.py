@@ -17,11 +17,13 @@ result against GEOS: the verdicts against the baseline's pairs and
 ``shapely.distance``, the nearest distances of the kept sites against
 ``STRtree.query_nearest`` (timed too, for comparison).
 
-The machine is shared: the load average is printed first, and a ratio taken
-while other work runs (the baseline uses one core, the pool two) is not the
-ratio of an idle machine.
+The baseline and the two whole calls run in interleaved rounds (``--repeat``
+of them; best of each), so that a machine that speeds up or slows down
+between rounds affects all three alike.  The machine is shared: the load
+average is printed first, and a ratio taken while other work runs (the
+baseline uses one core, the pool two) is not the ratio of an idle machine.
 
-Run:  /work/venv/bin/python benchmarks/bench_sites.py [--points 100000] [--zones 50000] [--setback 50] [--repeat 1] [--threads N]
+Run:  /work/venv/bin/python benchmarks/bench_sites.py [--points 100000] [--zones 50000] [--setback 50] [--repeat 5] [--threads N]
 """
 
 from __future__ import annotations
@@ -82,7 +84,7 @@ def main() -> None:
     parser.add_argument("--points", type=int, default=100_000)
     parser.add_argument("--zones", type=int, default=50_000)
     parser.add_argument("--setback", type=float, default=50.0)
-    parser.add_argument("--repeat", type=int, default=1)
+    parser.add_argument("--repeat", type=int, default=5)
     parser.add_argument("--threads", type=int, default=None, help="threads of the pooled runs (default: screen_sites' own)")
     args = parser.parse_args()
     pooled = _threads(args.threads)
@@ -110,9 +112,15 @@ def main() -> None:
     # warm up imports and caches (pyproj, scipy.spatial, GEOS) outside the timings
     screen_sites(cands.iloc[:100], exclude=[Exclusion(flood.iloc[:100], setback_m=args.setback, name="flood")])
     print(f"load average before timing: {' '.join(f'{v:.2f}' for v in os.getloadavg())}  ({os.cpu_count()} cores)")
-    t_base, pairs = timed(baseline, args.repeat)
-    t_one, (sites, record) = timed(lambda: ours(1), args.repeat)
-    t_pool, (_, record_p) = timed(lambda: ours(pooled), args.repeat)
+    # interleaved rounds: the baseline and both calls see the same state of a shared machine
+    t_base = t_one = t_pool = float("inf")
+    for _ in range(args.repeat):
+        t, pairs = timed(baseline, 1)
+        t_base = min(t_base, t)
+        t, (_, record_p) = timed(lambda: ours(pooled), 1)
+        t_pool = min(t_pool, t)
+        t, (sites, record) = timed(lambda: ours(1), 1)
+        t_one = min(t_one, t)
     t_zone1, _ = timed(lambda: zone_step(None), args.repeat)
     from concurrent.futures import ThreadPoolExecutor
 
