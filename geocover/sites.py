@@ -284,8 +284,9 @@ class _Shapes:
     point_xy: np.ndarray | None  # (n, 2) coordinates of the single points (NaN elsewhere), when there are no multipoints
 
     @classmethod
-    def of(cls, geoms: np.ndarray) -> "_Shapes":
-        types = shapely.get_type_id(geoms)  # -1 where missing
+    def of(cls, geoms: np.ndarray, types: np.ndarray | None = None) -> "_Shapes":
+        """The shapes of ``geoms``; ``types``: their type ids, when known already."""
+        types = shapely.get_type_id(geoms) if types is None else types  # -1 where missing
         # for a point, finite coordinates are all GEOS's validity check looks at, and this is
         # several times faster than shapely.is_valid on many points
         if (types == 0).all():  # single points only (the usual candidate layer)
@@ -780,9 +781,10 @@ def _screen_sites(
         working = _working_crs(crs, ex, "existing sites")
     cand = _reproject(cand, working, "candidates", notes)
     # with threads, the zone layers are read now and checked while the sites are prepared
-    cand_shapes = _Shapes.of(np.asarray(cand.geometry.array, dtype=object))
-    points = bool((cand_shapes.types == 0).any())
-    layers = [_ZoneLayer(rule, working, pool, points) for rule in rules] if pool is not None else None
+    cand_geoms = np.asarray(cand.geometry.array, dtype=object)
+    cand_types = shapely.get_type_id(cand_geoms)
+    layers = [_ZoneLayer(rule, working, pool, bool((cand_types == 0).any())) for rule in rules] if pool is not None else None
+    cand_shapes = _Shapes.of(cand_geoms, cand_types)
     cand_ids = _feature_ids(cand)
     cand_cost = _costs(cand, cost_field, float(default_cost), "candidates layer", notes, required=not only_existing)
     if label_field is None and cand.attrs.get("name") == "lattice" and "label" in cand.columns:
