@@ -158,11 +158,13 @@ def screen_zones(
     upper = settled = np.zeros(0)
     if grid is not None:
         # the sites in cell order: neighbouring sites read the same zones, so the gathers stay in cache
-        gridded = gridded[np.argsort(grid.cell_of(xy[rows[gridded]]))]  # any order of a cell's sites will do
         gxy = xy[rows[gridded]]
+        order = np.argsort(grid.cell_of(gxy))  # any order of a cell's sites will do
+        gridded = gridded[order]
+        gx, gy = gxy[order, 0], gxy[order, 1]
 
         def on(part: slice) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-            site, zone, dist, up, done = grid.screen(gxy[part], setback, nearest)
+            site, zone, dist, up, done = grid.screen(gx[part], gy[part], setback, nearest)
             return site + part.start, zone, dist, up, done
 
         parts = in_chunks(on, len(gridded), pool, _GRID_CHUNK)
@@ -556,7 +558,7 @@ class ZoneGrid:
         return site, row, lower, edge
 
     def screen(
-        self, xy: np.ndarray, setback: float, nearest: bool
+        self, px: np.ndarray, py: np.ndarray, setback: float, nearest: bool
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """The grid zones closer than ``setback`` to each point, and the distance to the nearest grid zone.
 
@@ -565,8 +567,7 @@ class ZoneGrid:
         and per point an upper bound of its distance to the grid zones,
         exact where ``settled`` (meaningful for the points with no pair).
         """
-        n = len(xy)
-        px, py = np.ascontiguousarray(xy[:, 0]), np.ascontiguousarray(xy[:, 1])
+        n = len(px)
         site, row, lower, edge = self.candidates(px, py)
         near = lower < _slack(np.float64(setback)) if setback > 0 else lower <= _MARGIN_ABS
         ci = np.flatnonzero(near)
