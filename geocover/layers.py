@@ -85,11 +85,11 @@ def _check_path(path: Path, what: str) -> None:
 
 
 def list_layers(path: Path | str) -> list[str]:
-    """Names of the vector layers in a file."""
+    """Names of the vector layers in a file (not the table of map styles a GeoPackage may hold)."""
     import pyogrio
 
     try:
-        return [str(name) for name in pyogrio.list_layers(str(path))[:, 0]]
+        return [str(name) for name, kind in pyogrio.list_layers(str(path)) if not (name == _STYLES_TABLE and kind is None)]
     except Exception as exc:
         raise LayerError(f"{path}: cannot be read as a vector file ({exc}); is it a complete GeoPackage or shapefile?") from None
 
@@ -241,12 +241,15 @@ def write_layers(
     target: Path | str,
     layers: Mapping[str, "gpd.GeoDataFrame"],
     inputs: tuple[Path, ...] = (),
+    styles: bool = True,
 ) -> Path:
     """Write several layers into one GeoPackage, atomically.
 
     Each layer gets a spatial index (GDAL's default for GeoPackage) and its
     CRS.  ``frame.attrs['description']``, when set, becomes the layer's
-    description in the GeoPackage contents table.
+    description in the GeoPackage contents table.  With ``styles``, the
+    output layers geocover has a map style for (:mod:`geocover.styles`) get
+    it as their default style, in a ``layer_styles`` table.
     """
     target = Path(target)
     with atomic_output(target, inputs) as tmp:
@@ -265,8 +268,60 @@ def write_layers(
                     pyogrio.write_dataframe(frame, tmp, layer=name, driver="GPKG", layer_options=options)
             except Exception as exc:
                 raise OutputError(f"cannot write layer {name!r} to {target}: {exc}") from exc
+        if styles and _STYLES_TABLE not in layers:
+            _write_styles(tmp, target, layers)
     logger.info("wrote %s (%s)", target, ", ".join(layers))
     return target
+
+
+_STYLES_TABLE = "layer_styles"  # the table (and its columns) QGIS reads a layer's default style from
+
+
+def _write_styles(tmp: Path, target: Path, layers: Mapping[str, "gpd.GeoDataFrame"]) -> None:
+    """Add the ``layer_styles`` table: one default style (QML and SLD) per styled layer of ``tmp``."""
+    import sqlite3
+
+    import pandas as pd
+    import pyogrio
+
+    from .styles import STYLE_NAME, layer_style, to_qml, to_sld
+
+    found = {name: layer_style(name, frame) for name, frame in layers.items()}
+    styled = {name: style for name, style in found.items() if style is not None}
+    if not styled:
+        return
+    # the geometry column GDAL gave each layer, and when it wrote it, from the GeoPackage's own tables
+    # (the time as GDAL stamps it, so that OGR_CURRENT_DATE pins it too)
+    with contextlib.closing(sqlite3.connect(f"file:{tmp}?mode=ro", uri=True)) as con:
+        columns = dict(con.execute("SELECT table_name, column_name FROM gpkg_geometry_columns").fetchall())
+        stamps = dict(con.execute("SELECT table_name, last_change FROM gpkg_contents").fetchall())
+    rows = [
+        {
+            "f_table_catalog": "",
+            "f_table_schema": "",
+            "f_table_name": name,
+            "f_geometry_column": columns[name],
+            "styleName": STYLE_NAME,
+            "styleQML": to_qml(style),
+            "styleSLD": to_sld(style),
+            "useAsDefault": True,
+            "description": style.title,
+            "owner": "",
+            "ui": "",
+            "update_time": pd.Timestamp(stamps[name]),
+        }
+        for name, style in styled.items()
+        if name in columns
+    ]
+    if not rows:
+        return
+    try:
+        pyogrio.write_dataframe(
+            pd.DataFrame(rows), tmp, layer=_STYLES_TABLE, driver="GPKG",
+            layer_options={"DESCRIPTION": "Default map styles of the layers (QGIS QML and OGC SLD 1.1)"},
+        )
+    except Exception as exc:
+        raise OutputError(f"cannot write the layer styles to {target}: {exc}") from exc
 
 
 def file_digest(path: Path | str, chunk: int = 1 << 20) -> str:

@@ -87,7 +87,10 @@ def test_written_layers_read_back_and_add_up(case, tmp_path):
     layers = study_layers(reach, plan, record, circles)
     target = write_layers(tmp_path / "study.gpkg", layers)
     listed = {name for name, _ in pyogrio.list_layers(target)}
-    assert listed == {"plan_sites", "service_areas", "covered_area", "demand", "uncovered", "uncovered_areas", "screened_sites"}
+    maps = {"plan_sites", "service_areas", "covered_area", "demand", "uncovered", "uncovered_areas", "screened_sites"}
+    assert listed == maps | {"layer_styles"}
+    styled = pyogrio.read_dataframe(target, layer="layer_styles")
+    assert set(styled["f_table_name"]) == maps and styled["useAsDefault"].all()
     for name, frame in layers.items():
         info = pyogrio.read_info(target, layer=name)
         assert info["crs"] == CRS
