@@ -69,6 +69,7 @@ _SEGMENTS = 1 << 16  # segment distances evaluated per numpy batch
 # threads 1.1x one with 4,096 sites per task, 1.3-1.7x with 12,500-25,000; 16,384 was best whole)
 _GRID_CHUNK = 16384
 _WIDTH = 64  # zones with more vertices (pieces' breaks included) take the GEOS path
+_BLOCK = 1 << 16  # vertices per block when the grid is built
 _MARGIN_REL, _MARGIN_ABS = 1e-9, 1e-6  # slack on bounds for rounding (metres)
 
 T = TypeVar("T")
@@ -388,13 +389,16 @@ class ZoneGrid:
         if not len(coords) or (vcount == 0).any() or not np.isfinite(coords).all():
             return None
         vstart = np.cumsum(vcount) - vcount
-        # per vertex, the far end of the segment it starts: the next vertex, itself (a lone point), none (-1)
-        nxt = np.arange(1, len(coords) + 1)
-        nxt[vstart + vcount - 1] = -1
         types = shapely.get_type_id(geoms)
-        nxt[vstart[types == 0]] = vstart[types == 0]
         usable = np.isin(types, (0,) + _SIMPLE) | ((types == 3) & (shapely.get_num_interior_rings(geoms) == 0))
         split = np.flatnonzero(~usable & np.isin(types, (3, 4, 5, 6)))  # holes, multi-parts; not collections
+        one_piece = bool(np.isin(types, _SIMPLE + (3,)).all()) and not len(split)  # lines and rings, no holes
+        nxt = np.zeros(0, dtype=np.int64)
+        if not one_piece:
+            # per vertex, the far end of the segment it starts: the next vertex, itself (a lone point), none (-1)
+            nxt = np.arange(1, len(coords) + 1)
+            nxt[vstart + vcount - 1] = -1
+            nxt[vstart[types == 0]] = vstart[types == 0]
         if len(split):
             pieces = _pieces(geoms[split])
             counts = shapely.get_num_coordinates(pieces) if pieces is not None else None
@@ -410,14 +414,21 @@ class ZoneGrid:
         x, y = coords[:, 0], coords[:, 1]
         env = shapely.bounds(geoms)
         cx, cy = (env[:, 0] + env[:, 2]) / 2, (env[:, 1] + env[:, 3]) / 2
-        dx = x - np.repeat(cx, vcount)  # (vertices are grouped by zone: owner is each zone repeated)
-        dx *= dx
-        dy = y - np.repeat(cy, vcount)
-        dy *= dy
-        dx += dy
-        radius = np.sqrt(np.maximum.reduceat(dx, vstart))
-        del dx, dy
-        one_piece = bool(np.isin(types, _SIMPLE + (3,)).all()) and not len(split)  # lines and rings, no holes
+        # in blocks of zones, so that the vertex-sized temporaries stay small (fresh memory is paid in page faults)
+        radius = np.empty(nz)
+        vend = vstart + vcount
+        a = 0
+        while a < nz:
+            b = max(a + 1, int(np.searchsorted(vend, vstart[a] + _BLOCK, side="right")))
+            v0, v1 = int(vstart[a]), int(vend[b - 1])
+            dx = x[v0:v1] - np.repeat(cx[a:b], vcount[a:b])  # (vertices are grouped by zone)
+            dx *= dx
+            dy = y[v0:v1] - np.repeat(cy[a:b], vcount[a:b])
+            dy *= dy
+            dx += dy
+            radius[a:b] = np.maximum.reduceat(dx, vstart[a:b] - v0)
+            a = b
+        np.sqrt(radius, out=radius)
         if one_piece:
             nseg, written = vcount - 1, vcount
         else:
@@ -461,18 +472,29 @@ class ZoneGrid:
         k = np.arange(width)
         size = written[sorted_members][:, None]
         if one_piece or (written == vcount).all():  # one piece per zone: its run is its vertices as they are
-            take = vstart[sorted_members][:, None] + np.minimum(k, size - 1)
+            first = vstart[sorted_members]
+            flat = None
         else:  # vertex j goes to position pos[j] of the runs laid end to end, its copy (lone point) after it
             pos = np.cumsum(step) - step
             flat = np.full(int(step.sum()), len(nxt))  # the slots left over are the NaNs
             flat[pos] = np.arange(len(nxt))
             flat[pos[lone] + 1] = np.flatnonzero(lone)
             coords = np.vstack([coords, [[np.nan, np.nan]]])
-            take = flat[pos[vstart[sorted_members]][:, None] + np.minimum(k, size - 1)]
-        pad = k >= size[:, 0][:, None]
-        run_x, run_y = coords[:, 0][take], coords[:, 1][take]
-        run_x[pad] = np.nan
-        run_y[pad] = np.nan
+            first = pos[vstart[sorted_members]]
+        x, y = coords[:, 0], coords[:, 1]
+        run_x = np.empty((len(sorted_members), width))
+        run_y = np.empty((len(sorted_members), width))
+        rows_per_block = max(1, _BLOCK // width)
+        for a in range(0, len(sorted_members), rows_per_block):
+            part = slice(a, a + rows_per_block)
+            take = first[part][:, None] + np.minimum(k, size[part] - 1)
+            if flat is not None:
+                take = flat[take]
+            pad = k >= size[part]
+            run_x[part] = x[take]
+            run_y[part] = y[take]
+            run_x[part][pad] = np.nan
+            run_y[part][pad] = np.nan
         band = max(1e-6, 1e-12 * max(-float(env.min()), float(env.max())))  # the envelopes hold every vertex
         return cls(
             geoms, run_x, run_y, np.isin(types[sorted_members], (3, 6)), band, cell, x0, y0, nx, ny, cell_start,

@@ -187,3 +187,13 @@ def test_ring_candidates_are_the_wider_cells_less_the_inner_ones():
         assert len(ring) == len(set(ring))
         assert set(ring) == set(zip(s1.tolist(), r1.tolist())) - set(zip(s0.tolist(), r0.tolist()))
         assert len(ring) > 0 and np.array_equal(e1, e2)
+
+
+def test_the_zone_grid_is_the_same_built_in_small_blocks(monkeypatch):
+    # the grid is built in blocks of vertices; blocks of a few vertices give the same arrays
+    zones = np.asarray(_zones(4).geometry.array)
+    whole = clearance.ZoneGrid.build(zones, 25.0)
+    monkeypatch.setattr(clearance, "_BLOCK", 7)
+    parts = clearance.ZoneGrid.build(zones, 25.0)
+    for name in ("run_x", "run_y", "centre", "polygonal", "zone", "cell_start", "other"):
+        assert np.array_equal(getattr(whole, name), getattr(parts, name), equal_nan=True), name
