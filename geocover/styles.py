@@ -17,8 +17,10 @@ field), rendered two ways:
 
 Values of a styled field that a style does not list fall into a last
 "other" class, so that no feature is left undrawn.  The colours are our
-own; pure data in, text out -- the writing is done by
-:func:`geocover.layers.write_layers`.
+own (:data:`PALETTE`, which the report's map uses too: new sites as dark
+teal triangles, existing facilities as orange squares, people left out in
+purple and people no site can serve in red); pure data in, text out -- the
+writing is done by :func:`geocover.layers.write_layers`.
 """
 
 from __future__ import annotations
@@ -30,7 +32,7 @@ from xml.sax.saxutils import escape, quoteattr
 if TYPE_CHECKING:
     import pandas as pd
 
-__all__ = ["Symbol", "LayerStyle", "layer_style", "to_sld", "to_qml", "STYLE_NAME"]
+__all__ = ["PALETTE", "Symbol", "LayerStyle", "layer_style", "to_sld", "to_qml", "STYLE_NAME"]
 
 STYLE_NAME = "geocover"
 _PIXEL_MM = 0.28  # SE 1.1: the standardized rendering pixel
@@ -82,25 +84,36 @@ class LayerStyle:
 
 # --------------------------------------------------------------------------- our styles
 
-_NEW = "#17607d"  # new sites and their service areas
-_EXISTING = "#33302e"
-_COVERED = "#6f9fbf"
-_LEFT_OUT = "#e0871b"
-_UNREACHABLE = "#a51c30"
-_OTHER = "#9a9a9a"
-_KEPT = "#2e8b57"
+#: geocover's own palette, shared by these styles and the report's map, so that both tell the same story
+PALETTE = {
+    "population": ["#f4efe1", "#e6cf9a", "#d19a5e", "#a8593f", "#6b2f3a"],
+    "exclusion": "#5b6c7d",
+    "service": "#1f8a84",
+    "chosen": "#0d4d4a",
+    "existing": "#e07b1f",
+    "unreachable": "#b8122e",
+    "left_out": "#7a3fb0",
+    "ink": "#1d2430",
+    "paper": "#fbfaf7",
+}
+_OPTIONAL = "#f2b27a"  # an existing facility the model may close: the existing colour, lighter
+_COVERED = "#8fb3ae"  # covered demand: the service colour, muted
+_LAND_USE = "#8c6d3f"
+_OTHER = "#b9b3a5"
 _HALO = "#ffffff"
 
 
-def _roles(field: str) -> tuple[tuple[str, str, Symbol], ...]:
-    existing = Symbol(_EXISTING, stroke=_HALO, stroke_mm=0.4, size_mm=3.0, shape="circle")
-    optional = Symbol("#8a8580", stroke=_HALO, stroke_mm=0.4, size_mm=3.0, shape="circle")
-    new = Symbol(_NEW, stroke=_HALO, stroke_mm=0.4, size_mm=3.6, shape="square")
-    if field == "plan":  # plan_sites: what the plan does with each chosen site
+def _roles(plan: bool) -> tuple[tuple[str, str, Symbol], ...]:
+    """New (or candidate) sites as triangles, existing facilities as squares, as on the report's map."""
+    existing = Symbol(PALETTE["existing"], stroke=PALETTE["ink"], stroke_mm=0.3, size_mm=3.4, shape="square")
+    optional = Symbol(_OPTIONAL, stroke=PALETTE["ink"], stroke_mm=0.3, size_mm=3.4, shape="square")
+    if plan:  # plan_sites: what the plan does with each chosen site
+        new = Symbol(PALETTE["chosen"], stroke=_HALO, stroke_mm=0.4, size_mm=3.8, shape="triangle")
         return (("new", "New site", new), ("existing_kept", "Existing, stays open", existing),
                 ("existing_optional_kept", "Existing, may close: kept", optional))
-    return (("candidate", "Candidate site", Symbol(_NEW, stroke=_HALO, stroke_mm=0.3, size_mm=2.4, shape="square")),
-            ("existing_kept", "Existing, stays open", existing), ("existing_optional", "Existing, may close", optional))
+    candidate = Symbol(PALETTE["service"], stroke=_HALO, stroke_mm=0.3, size_mm=2.6, shape="triangle")
+    return (("candidate", "Candidate site", candidate), ("existing_kept", "Existing, stays open", existing),
+            ("existing_optional", "Existing, may close", optional))
 
 
 def _reasons(size_mm: float, polygon: bool) -> tuple[tuple[str, str, Symbol], ...]:
@@ -109,8 +122,8 @@ def _reasons(size_mm: float, polygon: bool) -> tuple[tuple[str, str, Symbol], ..
             return Symbol(colour, opacity=0.35, stroke=colour, stroke_mm=0.3)
         return Symbol(colour, size_mm=size_mm)  # no halo: uncovered people come in dense grids
 
-    return (("unreachable", "No site can serve them", symbol(_UNREACHABLE)),
-            ("left_out", "Left out by the plan", symbol(_LEFT_OUT)))
+    return (("unreachable", "No site can serve them", symbol(PALETTE["unreachable"])),
+            ("left_out", "Left out by the plan", symbol(PALETTE["left_out"])))
 
 
 def layer_style(name: str, frame: "pd.DataFrame | Any") -> LayerStyle | None:
@@ -124,20 +137,21 @@ def layer_style(name: str, frame: "pd.DataFrame | Any") -> LayerStyle | None:
     if "geometry" not in columns and getattr(frame, "_geometry_column_name", None) is None:
         return None  # an attribute table
     other_point = Symbol(_OTHER, size_mm=2.0)
+    service = PALETTE["service"]
     styles: dict[str, LayerStyle] = {
         "plan_sites": LayerStyle("plan_sites", "point", "Chosen sites by role", field="role",
-                                 classes=_roles("plan"), other=other_point),
-        "sites": LayerStyle("sites", "point", "Usable sites by role", field="role", classes=_roles("sites"), other=other_point),
-        "sites_reach": LayerStyle("sites_reach", "point", "Sites", symbol=Symbol(_NEW, stroke=_HALO, stroke_mm=0.3,
-                                                                                  size_mm=2.4, shape="square")),
+                                 classes=_roles(plan=True), other=other_point),
+        "sites": LayerStyle("sites", "point", "Usable sites by role", field="role", classes=_roles(plan=False),
+                            other=other_point),
+        "sites_reach": LayerStyle("sites_reach", "point", "Sites", symbol=_roles(plan=False)[0][2]),
         "service_areas": LayerStyle("service_areas", "polygon", "Service area of each chosen site",
-                                    symbol=Symbol(_NEW, opacity=0.12, stroke=_NEW, stroke_mm=0.4)),
+                                    symbol=Symbol(service, opacity=0.12, stroke=service, stroke_mm=0.4)),
         "covered_area": LayerStyle("covered_area", "polygon", "Area the plan serves",
-                                   symbol=Symbol("#5f9e6e", opacity=0.18, stroke="#3f7a50", stroke_mm=0.3)),
+                                   symbol=Symbol(service, opacity=0.08, stroke=service, stroke_mm=0.26)),
         "demand": LayerStyle("demand", "point", "Demand by coverage", field="status", classes=(
             ("covered", "Covered", Symbol(_COVERED, size_mm=1.4)),
-            ("left_out", "Left out by the plan", Symbol(_LEFT_OUT, size_mm=1.8)),
-            ("unreachable", "No site can serve them", Symbol(_UNREACHABLE, size_mm=1.8)),
+            ("left_out", "Left out by the plan", Symbol(PALETTE["left_out"], size_mm=1.8)),
+            ("unreachable", "No site can serve them", Symbol(PALETTE["unreachable"], size_mm=1.8)),
         ), other=Symbol(_COVERED, size_mm=1.4)),
         "demand_reach": LayerStyle("demand_reach", "point", "Demand", symbol=Symbol(_COVERED, size_mm=1.4)),
         "uncovered": LayerStyle("uncovered", "point", "Uncovered people by reason", field="reason",
@@ -145,9 +159,9 @@ def layer_style(name: str, frame: "pd.DataFrame | Any") -> LayerStyle | None:
         "uncovered_areas": LayerStyle("uncovered_areas", "polygon", "Uncovered areas by reason", field="reason",
                                       classes=_reasons(0.0, polygon=True), other=Symbol(_OTHER, opacity=0.35, stroke=_OTHER)),
         "screened_sites": LayerStyle("screened_sites", "point", "Screening verdicts", field="verdict", classes=(
-            ("kept", "Kept", Symbol(_KEPT, stroke=_HALO, stroke_mm=0.2, size_mm=2.2)),
-            ("excluded", "In or near an exclusion zone", Symbol(_UNREACHABLE, size_mm=2.2, shape="triangle")),
-            ("land_use", "Land use not allowed", Symbol("#8c6d3f", size_mm=2.2, shape="triangle")),
+            ("kept", "Kept", Symbol(service, stroke=_HALO, stroke_mm=0.2, size_mm=2.2)),
+            ("excluded", "In or near an exclusion zone", Symbol(PALETTE["exclusion"], size_mm=2.4, shape="triangle")),
+            ("land_use", "Land use not allowed", Symbol(_LAND_USE, size_mm=2.4, shape="triangle")),
             ("outside", "Outside the study area", Symbol(_OTHER, size_mm=1.8)),
         ), other=other_point),
     }

@@ -2,7 +2,7 @@
 
 The maps and charts are PNGs drawn with matplotlib (Agg backend) and
 embedded as base64, so the report opens with no network and no other files.
-The palette is geocover's own (see ``PALETTE``).
+The palette is geocover's own (``geocover.styles.PALETTE``, shared with the layer styles).
 """
 
 from __future__ import annotations
@@ -18,6 +18,8 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from ..styles import PALETTE  # one palette for the report's map and the GeoPackage's layer styles
+
 __all__ = ["CAUTION", "PALETTE", "ReportData", "render_report", "write_report", "map_png", "tradeoff_png"]
 
 logger = logging.getLogger(__name__)
@@ -27,18 +29,6 @@ CAUTION = (
     "the authority having jurisdiction and licensed professional practice before siting any facility."
 )
 
-# geocover's own palette
-PALETTE = {
-    "population": ["#f4efe1", "#e6cf9a", "#d19a5e", "#a8593f", "#6b2f3a"],
-    "exclusion": "#5b6c7d",
-    "service": "#1f8a84",
-    "chosen": "#0d4d4a",
-    "existing": "#e07b1f",
-    "unreachable": "#b8122e",
-    "left_out": "#7a3fb0",
-    "ink": "#1d2430",
-    "paper": "#fbfaf7",
-}
 
 
 @dataclass
