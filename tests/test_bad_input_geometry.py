@@ -9,7 +9,7 @@ import json
 import numpy as np
 import pytest
 
-from _studykit import STUDY, X0, Y0, assert_clean_exit, edit, far_grid, invoke, write_study
+from _studykit import CRS, STUDY, X0, Y0, assert_clean_exit, edit, far_grid, invoke, write_study
 
 import geocover as gc
 from geocover.errors import InputError, LayerError
@@ -105,6 +105,33 @@ def test_population_cells_outside_the_clip_are_dropped_and_counted(tiny):
     assert half.total < full.total
     assert (half.xy[:, 0] < X0 + 1000).all()
     assert half.summary["people_in"] - half.summary["people_out"] == pytest.approx(full.total - half.total)
+
+
+@pytest.mark.parametrize("twist", ["bowtie", "crossing"])
+def test_a_self_intersecting_study_area_is_repaired_for_the_service_areas_too(tiny, twist):
+    import geopandas as gpd
+    import pyogrio
+    import shapely
+    from shapely.geometry import Polygon
+
+    x0, y0 = X0, Y0
+    if twist == "bowtie":  # two triangles meeting in the middle: its own area is 0
+        ring = [(x0, y0), (x0 + 2000, y0 + 2000), (x0 + 2000, y0), (x0, y0 + 2000)]
+    else:  # the district with one edge crossing another near a corner
+        ring = [(x0, y0), (x0 + 2000, y0), (x0 + 2000, y0 + 2000), (x0, y0 + 2000), (x0 + 100, y0 - 100)]
+    area = Polygon(ring)
+    assert not area.is_valid
+    # with a second feature: the union of the raw parts is a GEOS topology error
+    parts = [area, shapely.box(x0 + 2100, y0, x0 + 2300, y0 + 200)]
+    gpd.GeoDataFrame({"name": ["district", "annex"]}, geometry=parts, crs=CRS).to_file(tiny["gpkg"], layer="area")
+    study = write_study(tiny["dir"])
+    result = invoke("study", str(study), "--out", str(tiny["dir"] / "out"))
+    assert result.exit_code == 0, result.output
+    repaired = shapely.union_all(shapely.make_valid(np.array(parts, dtype=object)))
+    served = pyogrio.read_dataframe(tiny["dir"] / "out" / "study.gpkg", layer="service_areas")
+    assert len(served) and (served.geometry.area > 0).all()
+    # clipped to the repaired area (to GEOS's precision), not to nothing and not left unclipped
+    assert (served.geometry.difference(repaired).area < 1e-6 * served.geometry.area).all()
 
 
 # ----------------------------------------------------------------------------- nothing coverable

@@ -182,14 +182,20 @@ class StudyOutcome:
 
 
 def _study_area_geometry(ref: Any, crs: Any) -> Any:
+    """The study area (for clipping service areas), repaired as screening and the demand clip repair it.
+
+    Unrepaired, a self-intersecting polygon clipped the service areas to
+    nothing (a bow tie's own area is 0) or stopped the study with a GEOS
+    topology error.  The repair was reported when the layer was read for the
+    demand or the sites, so it is not reported again here.
+    """
     if ref is None:
         return None
-    import shapely
-
     from ..layers import read_vector, to_crs
+    from ..sites import _area_geometry
 
     frame = to_crs(read_vector(ref, "study_area"), crs, "study_area")
-    return shapely.union_all(frame.geometry.values)
+    return _area_geometry(frame, [])
 
 
 def _prepare(sections: Mapping[str, Mapping[str, Any]], run: RunContext) -> tuple[Demand, Sites, ScreeningRecord, Reach]:
