@@ -41,12 +41,18 @@ def _as_clip(clip: Any) -> Any:
         return None
     if isinstance(clip, shapely.Geometry):
         geom = clip
-    elif hasattr(clip, "geometry") and hasattr(clip.geometry, "union_all"):  # GeoDataFrame / GeoSeries
-        geom = clip.geometry.union_all()
     else:
-        parts = np.asarray(list(clip), dtype=object)
-        if not all(isinstance(g, shapely.Geometry) for g in parts):
-            raise InputError("clip: expected a shapely polygon (the study area) or a sequence of them")
+        if hasattr(clip, "geometry") and hasattr(clip.geometry, "union_all"):  # GeoDataFrame / GeoSeries
+            parts = np.asarray(clip.geometry.array, dtype=object)
+        else:
+            parts = np.asarray(list(clip), dtype=object)
+            if not all(isinstance(g, shapely.Geometry) for g in parts):
+                raise InputError("clip: expected a shapely polygon (the study area) or a sequence of them")
+        parts = parts[~shapely.is_missing(parts)]
+        bad = ~shapely.is_valid(parts)
+        if bad.any():  # the union of invalid parts can be a GEOS topology error: repair them first
+            parts = parts.copy()
+            parts[bad] = shapely.make_valid(parts[bad])
         geom = shapely.union_all(parts)
     if geom.is_empty:
         raise InputError("clip: the study area is empty; give the study-area polygon or leave clip unset")

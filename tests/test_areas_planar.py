@@ -69,3 +69,22 @@ def test_both_call_forms():
     tuple_clip = service_areas((s, [0], 100.0), study)  # (sites, chosen, limit) then the study area
     for polys in (by_position, tuple_clip):
         assert len(polys) == 1 and polys[0].area == pytest.approx(_ngon_area(100.0, 128) / 2, rel=1e-9)
+
+
+def test_a_clip_layer_with_an_invalid_part_among_several_is_repaired_not_a_topology_error():
+    import geopandas as gpd
+    from shapely.geometry import Polygon
+
+    from geocover.values import Sites
+
+    # one edge crosses another near a corner; with a second part, the raw union is a GEOS error
+    twisted = Polygon([(0, 0), (2000, 0), (2000, 2000), (0, 2000), (100, -100)])
+    parts = [twisted, shapely.box(2100, 0, 2300, 200)]
+    with pytest.raises(shapely.errors.GEOSException):
+        shapely.union_all(parts)
+    repaired = shapely.union_all(shapely.make_valid(np.array(parts, dtype=object)))
+    sites = Sites(np.array([[1000.0, 1000.0], [2200.0, 100.0]]), crs="EPSG:32633")
+    for clip in (parts, gpd.GeoDataFrame(geometry=parts, crs="EPSG:32633")):
+        polys = service_areas((sites, [0, 1], 500.0), clip=clip)
+        assert all(p.area > 0 for p in polys)
+        assert all(p.difference(repaired).area < 1e-6 * p.area for p in polys)
