@@ -150,15 +150,32 @@ def test_no_styles_table_when_asked_or_when_nothing_is_styled(tmp_path):
     assert {n for n, _ in pyogrio.list_layers(unstyled)} == {"notes"}
 
 
+_QGIS_PROBE = """
+import os
+os.environ["QT_QPA_PLATFORM"] = "offscreen"
+from qgis.core import QgsApplication, QgsProviderRegistry
+app = QgsApplication([], False); app.initQgis()
+assert "ogr" in QgsProviderRegistry.instance().providerList()
+"""
+
+
 def _qgis_python() -> str | None:
-    """A Python that imports QGIS (the system one, where QGIS is installed), else None."""
+    """A Python whose QGIS starts headless with its OGR provider (the system one, where QGIS is installed), else None."""
     for exe in ("/usr/bin/python3", shutil.which("python3")):
-        if exe and subprocess.run([exe, "-c", "import qgis.core"], capture_output=True).returncode == 0:
-            return exe
+        if exe:
+            try:
+                probe = subprocess.run([exe, "-c", _QGIS_PROBE], capture_output=True, timeout=60)
+            except (OSError, subprocess.TimeoutExpired):
+                continue
+            if probe.returncode == 0:
+                return exe
     return None
 
 
-@pytest.mark.skipif(_qgis_python() is None, reason="QGIS is not installed (optional outside check)")
+_QGIS = _qgis_python()
+
+
+@pytest.mark.skipif(_QGIS is None, reason="QGIS is not installed or does not start headless (optional outside check)")
 def test_qgis_opens_each_layer_with_our_style_and_reads_our_sld(tmp_path):
     # outside check: QGIS itself reads the default style from the table, and the SLD from the same row
     layers = _layers()
@@ -192,7 +209,7 @@ def test_qgis_opens_each_layer_with_our_style_and_reads_our_sld(tmp_path):
         print(json.dumps(out))
         """
     )
-    run = subprocess.run([_qgis_python(), "-c", script, str(target)], capture_output=True, text=True, timeout=120)
+    run = subprocess.run([_QGIS, "-c", script, str(target)], capture_output=True, text=True, timeout=120)
     assert run.returncode == 0, run.stderr[-2000:]
     seen = json.loads(run.stdout.strip().splitlines()[-1])
     assert set(seen) == {"plan_sites", "service_areas", "uncovered_areas", "screened_sites"}
