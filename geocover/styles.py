@@ -133,9 +133,9 @@ def layer_style(name: str, frame: "pd.DataFrame | Any") -> LayerStyle | None:
     a layer without the field a style classifies on gets the style's single
     symbol, or none.
     """
+    if not hasattr(frame, "geometry"):
+        return None  # an attribute table (as write_layers tells them apart)
     columns = set(getattr(frame, "columns", ()))
-    if "geometry" not in columns and getattr(frame, "_geometry_column_name", None) is None:
-        return None  # an attribute table
     other_point = Symbol(_OTHER, size_mm=2.0)
     service = PALETTE["service"]
     styles: dict[str, LayerStyle] = {

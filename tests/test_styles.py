@@ -232,3 +232,9 @@ def test_qgis_opens_each_layer_with_our_style_and_reads_our_sld(tmp_path):
                 alpha = round(255 * symbol.opacity) if how == "default" else int(255 * symbol.opacity)
                 assert symbols == [[symbol.fill, alpha]], (name, how, k)
     assert np.all([len(d["default"]["features"]) == len(layers[n]) for n, d in seen.items()])
+
+
+def test_attribute_tables_get_no_style():
+    import pandas as pd
+
+    assert styles.layer_style("demand", pd.DataFrame({"status": ["covered"]})) is None
