@@ -2,7 +2,7 @@
 
 A GIS user who opens an output GeoPackage should see the plan at once: new
 sites apart from existing ones, service areas as light outlines, uncovered
-people in warm colours by reason, screening verdicts by colour.  Each style
+people by reason, screening verdicts by colour.  Each style
 is data (:class:`LayerStyle`: one symbol, or one symbol per value of a
 field), rendered two ways:
 
@@ -130,8 +130,8 @@ def layer_style(name: str, frame: "pd.DataFrame | Any") -> LayerStyle | None:
     """The default style of output layer ``name``, or None (no style for it, or not a map layer).
 
     The style is chosen by the layer's name and checked against its fields:
-    a layer without the field a style classifies on gets the style's single
-    symbol, or none.
+    a layer without the field a style classifies on (the demand layer of the
+    demand tools has no ``status``) gets the style's "other" symbol for all.
     """
     if not hasattr(frame, "geometry"):
         return None  # an attribute table (as write_layers tells them apart)

@@ -30,7 +30,6 @@ CAUTION = (
 )
 
 
-
 @dataclass
 class ReportData:
     """Everything the report shows; plain values and arrays only."""
