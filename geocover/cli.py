@@ -50,6 +50,9 @@ def _progress_factory(enabled: bool) -> Any:
             return
         from tqdm import tqdm
 
+        # no monitor thread: it would be running when road searches fork their worker processes
+        # (Python 3.12+ warns of fork in a multi-threaded process), and these bars do not need it
+        tqdm.monitor_interval = 0
         fmt = "{desc}: {elapsed}" if total is None else None
         bar = tqdm(total=total, desc=name, file=sys.stderr, leave=False, bar_format=fmt, dynamic_ncols=True)
         try:
