@@ -57,7 +57,8 @@ class Symbol:
 
     def __post_init__(self) -> None:
         for colour in (self.fill, self.stroke):
-            if colour is not None and not (len(colour) == 7 and colour[0] == "#" and all(c in "0123456789abcdefABCDEF" for c in colour[1:])):
+            hexdigits = colour is not None and all(c in "0123456789abcdefABCDEF" for c in colour[1:])
+            if colour is not None and not (len(colour) == 7 and colour[0] == "#" and hexdigits):
                 raise ValueError(f"colour {colour!r} is not #rrggbb")
         if self.shape not in _MARKERS:
             raise ValueError(f"marker shape {self.shape!r} is not one of {_MARKERS}")
@@ -209,7 +210,7 @@ def to_sld(style: LayerStyle) -> str:
         field = f"<ogc:PropertyName>{escape(style.field)}</ogc:PropertyName>"
         equal = [f"<ogc:PropertyIsEqualTo>{field}<ogc:Literal>{escape(value)}</ogc:Literal></ogc:PropertyIsEqualTo>"
                  for value, _, _ in style.classes]
-        for (value, label, symbol), test in zip(style.classes, equal):
+        for (value, label, symbol), test in zip(style.classes, equal, strict=True):
             rules.append(_sld_rule(value, label, f"<ogc:Filter>{test}</ogc:Filter>", _sld_symbolizer(style, symbol)))
         if style.other is not None:
             # not se:ElseFilter, which some readers take for "every feature": none of the values, or none at all
