@@ -476,7 +476,6 @@ def test_the_pair_estimate_is_exact_for_32_sites_or_fewer():
 
 
 def test_memory_budget_must_be_a_positive_number():
-    roads = _roads([[(0.0, 0.0), (1000.0, 0.0)]], kmh=[36.0])
     d = Demand(np.array([[600.0, 0.0]]), [1.0], crs=UTM)
     s = Sites(np.array([[0.0, 0.0]]), crs=UTM)
     for bad in (0, -1.0, float("nan"), "1", True):
