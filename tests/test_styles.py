@@ -41,8 +41,18 @@ def _layers() -> dict[str, gpd.GeoDataFrame]:
         "uncovered_areas": gpd.GeoDataFrame({"reason": ["left_out", "unreachable"]},
                                             geometry=[shapely.box(0, 0, 10, 10), shapely.box(20, 20, 40, 40)], crs=CRS),
         "screened_sites": gpd.GeoDataFrame({"verdict": ["kept", "excluded", "land_use", "outside"]}, geometry=pts, crs=CRS),
+        "sites": gpd.GeoDataFrame({"role": ["candidate", "existing_kept", "existing_optional", "other"]}, geometry=pts, crs=CRS),
+        "covered_area": gpd.GeoDataFrame({"sites": [2]}, geometry=[shapely.box(0, 0, 100, 100)], crs=CRS),
+        "demand": gpd.GeoDataFrame({"status": ["covered", "left_out", "unreachable", "covered"]}, geometry=pts, crs=CRS),
+        "uncovered": gpd.GeoDataFrame({"reason": ["left_out", "unreachable"]}, geometry=pts[:2], crs=CRS),
+        "sites_reach": gpd.GeoDataFrame({"site_id": ["a"]}, geometry=pts[:1], crs=CRS),
+        "demand_reach": gpd.GeoDataFrame({"people": [3.0]}, geometry=pts[:1], crs=CRS),
         "notes": gpd.GeoDataFrame({"x": [1]}, geometry=[shapely.Point(1, 1)], crs=CRS),  # no style for it
     }
+
+
+STYLED = {"plan_sites", "service_areas", "uncovered_areas", "screened_sites", "sites", "covered_area", "demand",
+          "uncovered", "sites_reach", "demand_reach"}
 
 
 def _all_styles() -> list[styles.LayerStyle]:
@@ -119,8 +129,7 @@ def test_the_styles_table_names_each_styled_layer_and_its_geometry_column(tmp_pa
     layers = _layers()
     target = write_layers(tmp_path / "out.gpkg", layers)
     table = pyogrio.read_dataframe(target, layer="layer_styles")
-    styled = {"plan_sites", "service_areas", "uncovered_areas", "screened_sites"}
-    assert set(table["f_table_name"]) == styled and len(table) == len(styled)
+    assert set(table["f_table_name"]) == STYLED and len(table) == len(STYLED)
     with sqlite3.connect(target) as con:
         geometry = dict(con.execute("SELECT table_name, column_name FROM gpkg_geometry_columns"))
         contents = dict(con.execute("SELECT table_name, data_type FROM gpkg_contents"))
@@ -212,7 +221,7 @@ def test_qgis_opens_each_layer_with_our_style_and_reads_our_sld(tmp_path):
     run = subprocess.run([_QGIS, "-c", script, str(target)], capture_output=True, text=True, timeout=120)
     assert run.returncode == 0, run.stderr[-2000:]
     seen = json.loads(run.stdout.strip().splitlines()[-1])
-    assert set(seen) == {"plan_sites", "service_areas", "uncovered_areas", "screened_sites"}
+    assert set(seen) == STYLED
     for name, drawn in seen.items():
         style = styles.layer_style(name, layers[name])
         frame = layers[name]
