@@ -35,29 +35,27 @@ logger = logging.getLogger(__name__)
 
 
 def _as_clip(clip: Any) -> Any:
+    """The study area as one valid geometry: invalid parts repaired as screening repairs them, then united."""
     import shapely
+
+    from .sites import _repair
 
     if clip is None:
         return None
     if isinstance(clip, shapely.Geometry):
-        geom = clip
+        parts = np.array([clip], dtype=object)
+    elif hasattr(clip, "geometry") and hasattr(clip.geometry, "union_all"):  # GeoDataFrame / GeoSeries
+        parts = np.asarray(clip.geometry.array, dtype=object)
     else:
-        if hasattr(clip, "geometry") and hasattr(clip.geometry, "union_all"):  # GeoDataFrame / GeoSeries
-            parts = np.asarray(clip.geometry.array, dtype=object)
-        else:
-            parts = np.asarray(list(clip), dtype=object)
-            if not all(isinstance(g, shapely.Geometry) for g in parts):
-                raise InputError("clip: expected a shapely polygon (the study area) or a sequence of them")
-        parts = parts[~shapely.is_missing(parts)]
-        bad = ~shapely.is_valid(parts)
-        if bad.any():  # the union of invalid parts can be a GEOS topology error: repair them first
-            parts = parts.copy()
-            parts[bad] = shapely.make_valid(parts[bad])
-        geom = shapely.union_all(parts)
-    if geom.is_empty:
+        parts = np.asarray(list(clip), dtype=object)
+        if not all(isinstance(g, shapely.Geometry) for g in parts):
+            raise InputError("clip: expected a shapely polygon (the study area) or a sequence of them")
+    # make_valid on each invalid part, keeping a polygon's polygonal part (a spike would add a line), before
+    # the union: the union of invalid parts can be a GEOS topology error
+    parts = _repair(parts[~shapely.is_missing(parts)], "clip (study area)", [])
+    geom = parts[0] if len(parts) == 1 else shapely.union_all(parts)
+    if geom is None or geom.is_empty:
         raise InputError("clip: the study area is empty; give the study-area polygon or leave clip unset")
-    if not geom.is_valid:
-        geom = shapely.make_valid(geom)
     return geom
 
 

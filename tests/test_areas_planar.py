@@ -88,3 +88,14 @@ def test_a_clip_layer_with_an_invalid_part_among_several_is_repaired_not_a_topol
         polys = service_areas((sites, [0, 1], 500.0), clip=clip)
         assert all(p.area > 0 for p in polys)
         assert all(p.difference(repaired).area < 1e-6 * p.area for p in polys)
+
+
+def test_a_clip_with_a_spike_clips_to_its_polygonal_part_only():
+    # make_valid turns a polygon with a spike into a collection of the polygon and a line
+    spiked = shapely.Polygon([(0, 0), (1000, 0), (1000, 1000), (0, 1000), (0, 500), (-300, 500), (0, 500)])
+    assert shapely.get_type_id(shapely.make_valid(spiked)) == 7
+    sites = Sites(np.array([[50.0, 500.0]]), crs="EPSG:32633")
+    for clip in (spiked, [spiked, shapely.box(2000, 0, 2100, 100)]):
+        (poly,) = service_areas((sites, [0], 400.0), clip=clip)
+        assert shapely.get_type_id(poly) in (3, 6)  # a polygon, no line along the spike
+        assert poly.area > 0 and poly.difference(shapely.box(0, 0, 1000, 1000)).area < 1e-6 * poly.area
